@@ -1,0 +1,44 @@
+"""lensview: critical curves, magnifications and mirrored images of compact
+knots in lensed arcs behind galaxy clusters.
+
+The public API is re-exported here and imported on first use, so that
+``import lensview`` stays quick for the command line.
+"""
+
+from importlib import import_module
+
+__version__ = "0.1.0"
+
+_EXPORTS = {
+    "DeflectionField": "deflection",
+    "Curve": "curves",
+    "CurveSet": "curves",
+    "LensviewInputError": "errors",
+    "OutsideFootprintWarning": "errors",
+    "read_cutout": "fitsio",
+    "read_deflection": "fitsio",
+    "measure_candidates": "measure",
+    "summarize_models": "measure",
+    "pair_counterparts": "counterparts",
+    "predict_counterimages": "counterparts",
+    "source_plane_image": "counterparts",
+    "write_regions": "export",
+    "read_candidates": "export",
+    "write_table": "export",
+    "save_session": "export",
+    "load_session": "export",
+}
+
+__all__ = sorted(_EXPORTS) + ["__version__"]
+
+
+def __getattr__(name):
+    if name in _EXPORTS:
+        value = getattr(import_module(f".{_EXPORTS[name]}", __name__), name)
+        globals()[name] = value
+        return value
+    raise AttributeError(f"module 'lensview' has no attribute {name!r}")
+
+
+def __dir__():
+    return __all__
