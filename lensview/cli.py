@@ -1,0 +1,313 @@
+"""The ``lensview`` command.
+
+Subcommands (each prints what it wrote; errors of input end with a message
+and exit status 2, never a traceback):
+
+``lensview curves``   critical curves and caustics -> region table
+``lensview measure``  candidate measurements (per model and the spread)
+``lensview images``   predicted counter-images of one position
+``lensview pair``     mirrored pairs among marked candidates
+``lensview figure``   publication figure of the cutout with overlays
+``lensview demo``     regenerate the invented demo scenario
+"""
+
+import argparse
+import sys
+from pathlib import Path
+
+import astropy.units as u
+import numpy as np
+from astropy.coordinates import SkyCoord
+
+from .errors import LensviewInputError
+
+__all__ = ["main", "build_parser"]
+
+
+def _add_models(parser):
+    group = parser.add_argument_group("lens models")
+    group.add_argument("--model", action="append", required=True, metavar="FILE[,FILE_Y]",
+                       help="deflection model: two files 'x.fits,y.fits', or one file holding "
+                            "two image HDUs or a two-plane cube; repeat for several models")
+    group.add_argument("--model-name", action="append", default=[], metavar="NAME",
+                       help="name of each model, in the order of --model")
+    group.add_argument("--units", action="append", default=[], choices=["arcsec", "pixel"],
+                       help="deflection units per model (default arcsec); one value applies to all")
+    group.add_argument("--z-norm", action="append", default=[], type=_optional_float,
+                       metavar="Z|unit",
+                       help="redshift the maps were made for, or 'unit' for maps normalised to "
+                            "D_ls/D_s = 1 (default); one value applies to all")
+    group.add_argument("--z-lens", type=float, required=True, help="lens redshift")
+    group.add_argument("--z-source", type=float, required=True, help="source redshift")
+    group.add_argument("--h0", type=float, default=None,
+                       help="Hubble constant (km/s/Mpc) for a flat LCDM cosmology; default Planck18")
+    group.add_argument("--om0", type=float, default=None,
+                       help="matter density for a flat LCDM cosmology (with --h0)")
+
+
+def _optional_float(text):
+    if text.lower() in ("unit", "1", "none"):
+        return None
+    return float(text)
+
+
+def _per_model(values, n, default, label):
+    if not values:
+        return [default] * n
+    if len(values) == 1:
+        return values * n
+    if len(values) != n:
+        raise LensviewInputError(
+            f"{len(values)} values of {label} were given for {n} models; give one per model or one for all."
+        )
+    return values
+
+
+def _cosmology(args):
+    if args.h0 is None and args.om0 is None:
+        return None
+    from astropy.cosmology import FlatLambdaCDM
+
+    if args.h0 is None or args.om0 is None:
+        raise LensviewInputError("Give both --h0 and --om0 for a flat LCDM cosmology, or neither for Planck18.")
+    return FlatLambdaCDM(H0=args.h0, Om0=args.om0)
+
+
+def load_models(args):
+    """DeflectionFields from the model options of a parsed command line."""
+    from .deflection import DeflectionField
+
+    n = len(args.model)
+    names = _per_model(args.model_name, n, None, "--model-name") if args.model_name else [None] * n
+    units = _per_model(args.units, n, "arcsec", "--units")
+    norms = _per_model(args.z_norm, n, None, "--z-norm")
+    cosmology = _cosmology(args)
+    fields = []
+    for k, (spec, name, unit, z_norm) in enumerate(zip(args.model, names, units, norms)):
+        paths = [p for p in spec.split(",") if p]
+        if len(paths) not in (1, 2):
+            raise LensviewInputError(f"--model {spec!r}: give one file or two files separated by a comma.")
+        _progress(f"loading model {k + 1}/{n}: {spec}")
+        field = DeflectionField.from_fits(*paths, units=unit, z_lens=args.z_lens, z_norm=z_norm,
+                                          cosmology=cosmology, name=name or Path(paths[0]).stem)
+        fields.append(field)
+    return fields
+
+
+def _progress(message):
+    print(f"[lensview] {message}", file=sys.stderr, flush=True)
+
+
+def _candidates(path, cutout_wcs=None):
+    from .export import read_candidates
+
+    table = read_candidates(path, wcs=cutout_wcs)
+    if len(table) == 0:
+        raise LensviewInputError(f"The candidate file {path} holds no candidates.")
+    coords = SkyCoord(np.asarray(table["ra"], float) * u.deg, np.asarray(table["dec"], float) * u.deg)
+    return coords, [str(label) for label in table["label"]], table
+
+
+# ---------------------------------------------------------------------------- commands
+def cmd_curves(args):
+    from .export import write_regions
+    from .fitsio import read_cutout
+
+    fields = load_models(args)
+    curves = []
+    for field in fields:
+        _progress(f"critical curves of {field.name}")
+        curves += list(field.critical_curves(args.z_source))
+        if args.caustics:
+            curves += list(field.caustics(args.z_source))
+    wcs = read_cutout(args.cutout).wcs if args.cutout else fields[0].wcs
+    write_regions(args.output, curves, wcs=wcs)
+    print(f"wrote {len(curves)} curve(s) to {args.output}")
+
+
+def cmd_measure(args):
+    from .export import write_table
+    from .measure import measure_candidates, summarize_models
+
+    cutout = None
+    if args.cutout:
+        from .fitsio import read_cutout
+
+        cutout = read_cutout(args.cutout)
+    coords, labels, _ = _candidates(args.candidates, cutout.wcs if cutout else None)
+    fields = load_models(args)
+    _progress(f"measuring {len(coords)} candidate(s) against {len(fields)} model(s)")
+    table = measure_candidates(coords, fields, args.z_source, cosmology=_cosmology(args), labels=labels)
+    if cutout is not None and args.aperture:
+        table = _add_photometry(table, coords, cutout, args)
+    write_table(table, args.output)
+    print(f"wrote {len(table)} row(s) to {args.output}")
+    if len(fields) > 1 or args.spread:
+        spread_path = _sibling(args.output, "_spread")
+        write_table(summarize_models(table), spread_path)
+        print(f"wrote the model spread to {spread_path}")
+
+
+def _add_photometry(table, coords, cutout, args):
+    from astropy.table import join
+
+    from .photometry import aperture_photometry, delensed_properties, zero_point
+
+    zp = zero_point(cutout.header, args.zero_point)
+    phot = aperture_photometry(cutout.data, cutout.wcs, coords, radius=args.aperture * u.arcsec,
+                               annulus=(2 * args.aperture * u.arcsec, 3 * args.aperture * u.arcsec),
+                               zero_point=zp)
+    phot["candidate"] = np.arange(len(phot))
+    keep = [c for c in phot.colnames if c not in ("ra", "dec", "label")]
+    merged = join(table, phot[keep], keys="candidate", join_type="left")
+    if zp is not None and "mag_ab" in merged.colnames:
+        delensed = delensed_properties(np.asarray(merged["mag_ab"], float), np.asarray(merged["mu"], float),
+                                       np.asarray(merged["lambda_t"], float), args.z_source,
+                                       cosmology=_cosmology(args))
+        for name in delensed.colnames:
+            merged[name] = delensed[name]
+    merged.sort(["model", "candidate"])
+    return merged
+
+
+def cmd_images(args):
+    from .counterparts import predict_counterimages
+    from .export import write_table
+
+    fields = load_models(args)
+    coord = SkyCoord(args.ra * u.deg, args.dec * u.deg)
+    psf = args.psf_fwhm * u.arcsec if args.psf_fwhm else None
+    tables = []
+    for field in fields:
+        _progress(f"solving the lens equation on {field.name}")
+        images = predict_counterimages(coord, field, args.z_source, psf_fwhm=psf)
+        images["model"] = field.name
+        tables.append(images)
+        print(f"{field.name}: {len(images)} image(s) of the source")
+    from astropy.table import vstack
+
+    write_table(vstack(tables, metadata_conflicts="silent"), args.output)
+    print(f"wrote {args.output}")
+
+
+def cmd_pair(args):
+    from .counterparts import pair_counterparts
+    from .export import write_table
+
+    coords, labels, _ = _candidates(args.candidates)
+    fields = load_models(args)
+    tolerance = args.tolerance * u.arcsec if args.tolerance else None
+    table = pair_counterparts(coords, fields, args.z_source, tolerance=tolerance)
+    write_table(table, args.output)
+    print(f"wrote {len(table)} proposed pair(s) to {args.output}")
+
+
+def cmd_figure(args):
+    from .figures import render_field_figure, save_figure
+    from .fitsio import read_cutout
+
+    cutout = read_cutout(args.cutout)
+    fields = load_models(args)
+    curves = []
+    for field in fields:
+        curves += list(field.critical_curves(args.z_source))
+    candidates = None
+    if args.candidates:
+        _, _, candidates = _candidates(args.candidates, cutout.wcs)
+    fig = render_field_figure(cutout.data, cutout.wcs, curves=curves, candidates=candidates,
+                              z_lens=args.z_lens, cosmology=_cosmology(args), stretch=args.stretch)
+    save_figure(fig, args.output, dpi=args.dpi)
+    print(f"wrote {args.output}")
+
+
+def cmd_demo(args):
+    from .demo import generate_demo
+
+    written = generate_demo(args.directory, seed=args.seed)
+    print(f"wrote the demo scenario to {args.directory}"
+          + (f" ({len(written)} files)" if written else ""))
+
+
+def _sibling(path, suffix):
+    path = Path(path)
+    return str(path.with_name(path.stem + suffix + path.suffix))
+
+
+def build_parser():
+    """The argument parser of the ``lensview`` command."""
+    parser = argparse.ArgumentParser(
+        prog="lensview",
+        description="Critical curves, magnifications and mirrored images of compact knots "
+                    "in cluster-lensed arcs. Magnifications near critical curves depend "
+                    "strongly on the lens model: compare several models.")
+    sub = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
+
+    p = sub.add_parser("curves", help="critical curves (and caustics) as a region table")
+    _add_models(p)
+    p.add_argument("--cutout", help="FITS cutout whose pixel frame the .fits region table uses")
+    p.add_argument("--caustics", action="store_true", help="also write the caustics")
+    p.add_argument("-o", "--output", required=True, help="output .fits, .ecsv or .vot")
+    p.set_defaults(run=cmd_curves)
+
+    p = sub.add_parser("measure", help="offsets, magnification and parity of candidates")
+    _add_models(p)
+    p.add_argument("--candidates", required=True,
+                   help="CSV/ECSV/VOTable with RA/Dec columns (or x/y pixels with --cutout)")
+    p.add_argument("--cutout", help="FITS cutout (for pixel positions and photometry)")
+    p.add_argument("--aperture", type=float, default=None, metavar="ARCSEC",
+                   help="aperture radius for photometry on the cutout")
+    p.add_argument("--zero-point", type=float, default=None, help="AB zero point (default: header)")
+    p.add_argument("--spread", action="store_true", help="also write the spread table for one model")
+    p.add_argument("-o", "--output", required=True, help="output .ecsv, .csv or .vot")
+    p.set_defaults(run=cmd_measure)
+
+    p = sub.add_parser("images", help="all images of the source behind one position")
+    _add_models(p)
+    p.add_argument("--ra", type=float, required=True, help="RA of the image (deg)")
+    p.add_argument("--dec", type=float, required=True, help="Dec of the image (deg)")
+    p.add_argument("--psf-fwhm", type=float, default=None, metavar="ARCSEC",
+                   help="resolution, to flag images that merge into one")
+    p.add_argument("-o", "--output", required=True, help="output .ecsv, .csv or .vot")
+    p.set_defaults(run=cmd_images)
+
+    p = sub.add_parser("pair", help="propose mirrored pairs among candidates")
+    _add_models(p)
+    p.add_argument("--candidates", required=True, help="CSV/ECSV/VOTable with RA/Dec columns")
+    p.add_argument("--tolerance", type=float, default=None, metavar="ARCSEC",
+                   help="source-plane match tolerance (default 0.1 arcsec or the model spread)")
+    p.add_argument("-o", "--output", required=True, help="output .ecsv, .csv or .vot")
+    p.set_defaults(run=cmd_pair)
+
+    p = sub.add_parser("figure", help="figure of the cutout with curves and candidates")
+    _add_models(p)
+    p.add_argument("--cutout", required=True, help="FITS cutout")
+    p.add_argument("--candidates", help="candidate list to mark")
+    p.add_argument("--stretch", default="asinh", choices=["linear", "sqrt", "log", "asinh"])
+    p.add_argument("--dpi", type=int, default=300)
+    p.add_argument("-o", "--output", required=True, help="output .png or .pdf")
+    p.set_defaults(run=cmd_figure)
+
+    p = sub.add_parser("demo", help="regenerate the invented demo scenario")
+    p.add_argument("directory", nargs="?", default="sample_images")
+    p.add_argument("--seed", type=int, default=None, help="random seed (default: the demo's own)")
+    p.set_defaults(run=cmd_demo)
+    return parser
+
+
+def main(argv=None):
+    """Entry point of the ``lensview`` command; returns the exit status."""
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    try:
+        args.run(args)
+    except LensviewInputError as error:
+        print(f"lensview: error: {error}", file=sys.stderr)
+        return 2
+    except (OSError, ValueError) as error:
+        print(f"lensview: error: {error}", file=sys.stderr)
+        return 2
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
