@@ -5,6 +5,7 @@ import pytest
 import astropy.units as u
 from astropy.coordinates import SkyCoord
 from astropy.cosmology import FlatLambdaCDM, Planck18
+from astropy.io import fits
 from astropy.modeling.models import Gaussian2D
 from astropy.stats import gaussian_fwhm_to_sigma
 from astropy.wcs import WCS
@@ -373,3 +374,17 @@ def test_zero_point_prefers_the_users_value():
     assert ph.zero_point() is None
     with pytest.raises(LensviewInputError, match="AB magnitude"):
         ph.zero_point(user_value="bright")
+
+
+def test_zero_point_from_header_unless_the_user_gives_one():
+    header = fits.Header()
+    header["PHOTZP"] = 28.1
+    assert ph.zero_point(header) == pytest.approx(28.1)
+    assert ph.zero_point(header, user_value=25.0) == 25.0
+    assert ph.zero_point(fits.Header()) is None
+    # An image in nJy per pixel: a flux of 27.5 image units is 27.5 nJy, whose
+    # AB magnitude follows from 3631 Jy (Oke & Gunn 1983).
+    in_njy = fits.Header()
+    in_njy["BUNIT"] = "nJy"
+    from_header = ph.ab_magnitude(27.5, ph.zero_point(in_njy))
+    assert from_header == pytest.approx(ph.ab_magnitude_from_fnu(27.5 * u.nJy), abs=1e-9)
