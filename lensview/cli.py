@@ -161,11 +161,13 @@ def _add_photometry(table, coords, cutout, args):
     keep = [c for c in phot.colnames if c not in ("ra", "dec", "label")]
     merged = join(table, phot[keep], keys="candidate", join_type="left")
     if zp is not None and "mag_ab" in merged.colnames:
-        delensed = delensed_properties(np.asarray(merged["mag_ab"], float), np.asarray(merged["mu"], float),
-                                       np.asarray(merged["lambda_t"], float), args.z_source,
+        delensed = delensed_properties(mu=np.asarray(merged["mu"], float), z_source=args.z_source,
+                                       mag=np.asarray(merged["mag_ab"], float),
+                                       lambda_t=np.asarray(merged["lambda_t"], float),
                                        cosmology=_cosmology(args))
         for name in delensed.colnames:
-            merged[name] = delensed[name]
+            if name not in merged.colnames:
+                merged[name] = delensed[name]
     merged.sort(["model", "candidate"])
     return merged
 
