@@ -15,7 +15,8 @@ EDS = FlatLambdaCDM(H0=H0, Om0=1.0)  # Einstein-de Sitter: no Lambda, no radiati
 
 
 def eds_comoving(z):
-    # Einstein-de Sitter closed form D_C = (2c/H0)(1 - 1/sqrt(1+z)) (Hogg 1999, arXiv:astro-ph/9905116).
+    # Einstein-de Sitter closed form D_C = (2c/H0)(1 - 1/sqrt(1+z))
+    # (Hogg 1999, arXiv:astro-ph/9905116).
     return (2 * const.c / H0 * (1 - 1 / np.sqrt(1 + np.asarray(z, float)))).to(u.Mpc)
 
 
