@@ -220,7 +220,10 @@ class NFW(_Profile):
     def _h(x):
         inner = 2 / _sqrt(1 - x * x + 0j) * np.arctanh(_sqrt((1 - x) / (1 + x) + 0j))
         outer = 2 / _sqrt(x * x - 1 + 0j) * np.arctan(_sqrt((x - 1) / (x + 1) + 0j))
-        branch = np.where(np.real(x) < 1, inner, outer)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            branch = np.where(np.real(x) < 1, inner, outer)
+        # Both forms tend to 1 at x = 1, where each is 0/0.
+        branch = np.where(np.isclose(np.real(x), 1.0, rtol=0, atol=1e-12), 1.0, branch)
         h = np.log(x / 2) + branch
         return h if np.iscomplexobj(x) else np.real(h)
 
