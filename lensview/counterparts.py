@@ -203,9 +203,7 @@ def predict_counterimages(coord, field, z_source, *, psf_fwhm=None):
 
 def _node_deflection(field, rows, cols):
     """Unscaled deflection (map pixels) at integer nodes, read straight from the maps."""
-    ax = np.asarray(field._alpha[0][rows, cols], np.float64) * field._to_pixels[0]
-    ay = np.asarray(field._alpha[1][rows, cols], np.float64) * field._to_pixels[1]
-    return ax, ay
+    return field.node_deflection(rows, cols)
 
 
 def _block_bounds(field, f):
@@ -238,11 +236,11 @@ def _block_bounds(field, f):
         r0, r1 = first * BLOCK, min(last * BLOCK, ny - 1)
         height = (last - first) * BLOCK + 1
         rows = np.arange(r0, r1 + 1, dtype=np.float64)[:, None]
+        strip = field.node_deflection(slice(r0, r1 + 1), slice(None))
         for component, position in enumerate((columns, rows)):
             plane = np.full((height, width), np.nan)
             target = plane[:r1 - r0 + 1, :nx]
-            np.multiply(field._alpha[component][r0:r1 + 1], -f * field._to_pixels[component],
-                        out=target)
+            np.multiply(strip[component], -f, out=target)
             target += position
             bounds[2 * component, first:last] = _reduce_blocks(plane, np.fmin)
             bounds[2 * component + 1, first:last] = _reduce_blocks(plane, np.fmax)

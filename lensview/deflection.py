@@ -224,6 +224,22 @@ class DeflectionField:
         x, y = self.sky_to_pixels(coords)
         return np.isfinite(self.local_terms(x, y, warn=False).a11)
 
+    def node_deflection(self, rows, cols):
+        """Unscaled deflection in map pixels at grid nodes.
+
+        Parameters
+        ----------
+        rows, cols : index
+            Any numpy index into the map (integer arrays or slices).
+
+        Returns
+        -------
+        ax, ay : ndarray
+            float64 copies; multiply by `scaling_factor` for a source redshift.
+        """
+        return tuple(np.asarray(alpha[rows, cols], np.float64) * factor
+                     for alpha, factor in zip(self._alpha, self._to_pixels))
+
     # ------------------------------------------------------------------ point evaluation
     def local_terms(self, x, y, *, second_derivatives=False, warn=True):
         """Deflection and Jacobian at map pixel positions.
