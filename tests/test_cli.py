@@ -1,0 +1,115 @@
+"""The lensview command: real files in, tables and regions out, clear errors."""
+
+import subprocess
+import sys
+
+import numpy as np
+import pytest
+import astropy.units as u
+from astropy.io import fits
+from astropy.table import Table
+
+import lensview as lv
+from lensview.cli import main
+
+from closed_form import make_wcs, sie
+
+Z_LENS, Z_SOURCE = 0.4, 2.0
+
+
+@pytest.fixture(scope="module")
+def files(tmp_path_factory):
+    """A SIE model as two files and as a cube, a cutout and a candidate list."""
+    tmp = tmp_path_factory.mktemp("cli")
+    n = 240
+    wcs = make_wcs(n, n, scale_arcsec=0.05, rotation_deg=20)
+    ax, ay = sie(n, 70.0, 0.7, 0.4, n / 2 + 0.3, n / 2 - 0.2)
+    header = wcs.to_header()
+    header["BUNIT"] = "pixel"
+    fits.writeto(tmp / "sie_x.fits", ax.astype(np.float32), header)
+    fits.writeto(tmp / "sie_y.fits", ay.astype(np.float32), header)
+    cube_header = header.copy()
+    fits.writeto(tmp / "sie_cube.fits", np.stack([ax, ay]).astype(np.float32) * 1.1, cube_header)
+    cutout_wcs = make_wcs(200, 200, scale_arcsec=0.04)
+    rng = np.random.default_rng(0)
+    cutout_header = cutout_wcs.to_header()
+    cutout_header["PHOTZP"] = 28.0
+    fits.writeto(tmp / "cutout.fits", rng.normal(0, 0.01, (200, 200)).astype(np.float32), cutout_header)
+    field = lv.DeflectionField(ax, ay, wcs, units="pixel", z_lens=Z_LENS)
+    xy = np.array([[60.0, 120.0], [180.0, 90.0], [120.0, 200.0]])
+    coords = field.pixels_to_sky(xy[:, 0], xy[:, 1])
+    candidates = Table({"ra": coords.ra.deg * u.deg, "dec": coords.dec.deg * u.deg,
+                        "label": ["north", "east", "west"]})
+    candidates.write(tmp / "knots.ecsv")
+    (tmp / "empty.csv").write_text("ra,dec,label\n")
+    (tmp / "junk.fits").write_bytes(b"this is not a FITS file" * 20)
+    return tmp, field, coords
+
+
+def model_args(tmp):
+    return ["--model", f"{tmp / 'sie_x.fits'},{tmp / 'sie_y.fits'}", "--units", "pixel",
+            "--model-name", "two-files", "--model", str(tmp / "sie_cube.fits"),
+            "--model-name", "cube", "--z-lens", str(Z_LENS), "--z-source", str(Z_SOURCE)]
+
+
+def test_measure_writes_the_library_table(files, tmp_path, capsys):
+    tmp, field, coords = files
+    out = tmp_path / "knots_measured.ecsv"
+    status = main(["measure", *model_args(tmp), "--candidates", str(tmp / "knots.ecsv"),
+                   "-o", str(out)])
+    assert status == 0
+    table = Table.read(out)
+    assert len(table) == 6 and set(table["model"]) == {"two-files", "cube"}
+    expected = lv.measure_candidates(coords, field, Z_SOURCE)
+    mine = table[table["model"] == "two-files"]
+    np.testing.assert_allclose(mine["offset_arcsec"], expected["offset_arcsec"], rtol=1e-5)
+    np.testing.assert_allclose(mine["mu"], expected["mu"], rtol=1e-4)
+    assert table["offset_arcsec"].unit == u.arcsec
+    spread = Table.read(tmp_path / "knots_measured_spread.ecsv")
+    assert list(spread["label"]) == ["north", "east", "west"]
+    assert "[lensview]" in capsys.readouterr().err  # progress on stderr
+
+
+def test_curves_and_images(files, tmp_path):
+    tmp, field, coords = files
+    regions = tmp_path / "curves.ecsv"
+    assert main(["curves", *model_args(tmp), "--caustics", "-o", str(regions)]) == 0
+    vertices = Table.read(regions)
+    assert {"kind", "curve_id", "model", "ra", "dec"} <= set(vertices.colnames)
+    images = tmp_path / "images.ecsv"
+    assert main(["images", *model_args(tmp)[:6], "--z-lens", str(Z_LENS), "--z-source", str(Z_SOURCE),
+                 "--ra", str(coords[0].ra.deg), "--dec", str(coords[0].dec.deg), "-o", str(images)]) == 0
+    table = Table.read(images)
+    assert len(table) >= 2 and set(np.unique(table["parity"])) <= {-1, 1}
+
+
+@pytest.mark.parametrize("change, phrase", [
+    (lambda a, tmp: a[:a.index("--z-source") + 1] + ["0.2"] + a[a.index("--z-source") + 2:],
+     "at or below"),
+    (lambda a, tmp: ["--model", str(tmp / "junk.fits")] + a[a.index("--z-lens"):], "FITS"),
+    (lambda a, tmp: ["--model", str(tmp / "missing.fits")] + a[a.index("--z-lens"):], "missing.fits"),
+])
+def test_bad_input_exits_2_with_a_message(files, tmp_path, capsys, change, phrase):
+    tmp = files[0]
+    args = change(model_args(tmp), tmp)
+    status = main(["measure", *args, "--candidates", str(tmp / "knots.ecsv"),
+                   "-o", str(tmp_path / "out.ecsv")])
+    err = capsys.readouterr().err
+    assert status == 2
+    assert phrase in err and "Traceback" not in err
+    assert not (tmp_path / "out.ecsv").exists()
+
+
+def test_empty_candidate_file_is_an_error(files, tmp_path, capsys):
+    tmp = files[0]
+    status = main(["measure", *model_args(tmp), "--candidates", str(tmp / "empty.csv"),
+                   "-o", str(tmp_path / "out.ecsv")])
+    assert status == 2
+    assert "candidate" in capsys.readouterr().err.lower()
+
+
+def test_console_script_help():
+    result = subprocess.run([sys.executable, "-m", "lensview.cli", "--help"], capture_output=True,
+                            text=True, check=True)
+    for command in ("curves", "measure", "images", "pair", "figure", "demo"):
+        assert command in result.stdout
