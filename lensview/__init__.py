@@ -22,6 +22,7 @@ _EXPORTS = {
     "pair_counterparts": "counterparts",
     "predict_counterimages": "counterparts",
     "source_plane_image": "counterparts",
+    "measure_ensemble": "ensemble",
     "write_regions": "export",
     "read_candidates": "export",
     "write_table": "export",
