@@ -8,6 +8,7 @@ and exit status 2, never a traceback):
 ``lensview images``   predicted counter-images of one position
 ``lensview pair``     mirrored pairs among marked candidates
 ``lensview figure``   publication figure of the cutout with overlays
+``lensview session``  check a saved session against its input files
 ``lensview demo``     regenerate the invented demo scenario
 """
 
@@ -121,8 +122,10 @@ def cmd_curves(args):
         if args.caustics:
             curves += list(field.caustics(args.z_source))
     wcs = read_cutout(args.cutout).wcs if args.cutout else fields[0].wcs
-    write_regions(args.output, curves, wcs=wcs)
-    print(f"wrote {len(curves)} curve(s) to {args.output}")
+    candidates = _candidates(args.candidates, wcs)[2] if args.candidates else None
+    write_regions(args.output, curves, candidates, wcs=wcs)
+    extra = f" and {len(candidates)} candidate(s)" if candidates is not None else ""
+    print(f"wrote {len(curves)} curve(s){extra} to {args.output}")
 
 
 def cmd_measure(args):
@@ -140,11 +143,12 @@ def cmd_measure(args):
     table = measure_candidates(coords, fields, args.z_source, cosmology=_cosmology(args), labels=labels)
     if cutout is not None and args.aperture:
         table = _add_photometry(table, coords, cutout, args)
-    write_table(table, args.output)
+    cosmology = _cosmology(args) or fields[0].cosmology
+    write_table(table, args.output, cosmology=cosmology)
     print(f"wrote {len(table)} row(s) to {args.output}")
     if len(fields) > 1 or args.spread:
         spread_path = _sibling(args.output, "_spread")
-        write_table(summarize_models(table), spread_path)
+        write_table(summarize_models(table), spread_path, cosmology=cosmology)
         print(f"wrote the model spread to {spread_path}")
 
 
@@ -222,6 +226,28 @@ def cmd_figure(args):
     print(f"wrote {args.output}")
 
 
+def cmd_session(args):
+    from .export import check_session_files, load_session
+
+    session = load_session(args.session)
+    supplied = {Path(p).name: p for p in args.files}
+    statuses = check_session_files(session, supplied)
+    for status in statuses:
+        print(str(status))
+    print(f"{len(session.candidates)} candidate(s); z_lens = {session.z_lens}, "
+          f"z_source = {session.z_source}")
+    if args.candidates_out:
+        from .export import write_table
+
+        write_table(session.candidate_table(), args.candidates_out)
+        print(f"wrote the candidates to {args.candidates_out}")
+    bad = [s for s in statuses if not s.ok]
+    if bad:
+        raise LensviewInputError(
+            f"{len(bad)} input file(s) are missing or differ from the session; supply the "
+            "files the session was made with (see the lines above).")
+
+
 def cmd_demo(args):
     from .demo import generate_demo
 
@@ -248,6 +274,7 @@ def build_parser():
     _add_models(p)
     p.add_argument("--cutout", help="FITS cutout whose pixel frame the .fits region table uses")
     p.add_argument("--caustics", action="store_true", help="also write the caustics")
+    p.add_argument("--candidates", help="candidate list to add as points (label, pair_id kept)")
     p.add_argument("-o", "--output", required=True, help="output .fits, .ecsv or .vot")
     p.set_defaults(run=cmd_curves)
 
@@ -288,6 +315,12 @@ def build_parser():
     p.add_argument("--dpi", type=int, default=300)
     p.add_argument("-o", "--output", required=True, help="output .png or .pdf")
     p.set_defaults(run=cmd_figure)
+
+    p = sub.add_parser("session", help="check a saved session against its input files")
+    p.add_argument("session", help="session file (.json) saved by the app")
+    p.add_argument("files", nargs="*", help="the cutout and model files to check")
+    p.add_argument("--candidates-out", help="also write the session's candidates (.ecsv/.csv/.vot)")
+    p.set_defaults(run=cmd_session)
 
     p = sub.add_parser("demo", help="regenerate the invented demo scenario")
     p.add_argument("directory", nargs="?", default="sample_images")

@@ -113,3 +113,35 @@ def test_console_script_help():
                             text=True, check=True)
     for command in ("curves", "measure", "images", "pair", "figure", "demo"):
         assert command in result.stdout
+
+
+def test_curves_with_candidates_to_fits_region_table(files, tmp_path):
+    from regions import Regions
+
+    tmp = files[0]
+    out = tmp_path / "overlay.fits"
+    assert main(["curves", *model_args(tmp), "--cutout", str(tmp / "cutout.fits"),
+                 "--candidates", str(tmp / "knots.ecsv"), "-o", str(out)]) == 0
+    regions = Regions.read(out, format="fits")
+    assert len(regions) >= 5  # curves of two models plus three points
+
+
+def test_session_check_names_the_file_that_differs(files, tmp_path, capsys):
+    from lensview.export import InputFile, ModelInputs, save_session
+
+    tmp, _, coords = files
+    cutout = InputFile.from_content("cutout.fits", tmp / "cutout.fits")
+    model = ModelInputs("cube", (InputFile.from_content("sie_cube.fits", tmp / "sie_cube.fits"),))
+    session_path = tmp_path / "session.json"
+    save_session(session_path, dict(z_lens=Z_LENS, z_source=Z_SOURCE, cutout=cutout, models=(model,),
+                                    candidates=coords))
+    assert main(["session", str(session_path), str(tmp / "cutout.fits"), str(tmp / "sie_cube.fits"),
+                 "--candidates-out", str(tmp_path / "c.ecsv")]) == 0
+    assert len(Table.read(tmp_path / "c.ecsv")) == 3
+    changed = tmp_path / "sie_cube.fits"
+    changed.write_bytes((tmp / "sie_cube.fits").read_bytes()[:-2880] + b"\0" * 2880)
+    status = main(["session", str(session_path), str(tmp / "cutout.fits"), str(changed)])
+    captured = capsys.readouterr()
+    assert status == 2
+    assert "sie_cube.fits" in captured.out + captured.err
+    assert "differ" in (captured.out + captured.err)
