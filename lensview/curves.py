@@ -237,8 +237,9 @@ def _contour_tiles(field, tiles, f):
     has = np.stack([s00[k, r, c] != s01[k, r, c], s10[k, r, c] != s11[k, r, c],
                     s00[k, r, c] != s10[k, r, c], s01[k, r, c] != s11[k, r, c]], axis=1)
     with np.errstate(divide="ignore", invalid="ignore"):
-        x = np.stack([C + v00 / (v00 - v01), C + v10 / (v10 - v11), C + 0.0 * v00, C + 1.0 + 0.0 * v00], axis=1)
-        y = np.stack([R + 0.0 * v00, R + 1.0 + 0.0 * v00, R + v00 / (v00 - v10), R + v01 / (v01 - v11)], axis=1)
+        zero = np.zeros_like(v00)
+        x = np.stack([C + v00 / (v00 - v01), C + v10 / (v10 - v11), C + zero, C + 1.0 + zero], axis=1)
+        y = np.stack([R + zero, R + 1.0 + zero, R + v00 / (v00 - v10), R + v01 / (v01 - v11)], axis=1)
     count = has.sum(axis=1)
     ends_a, ends_b = [], []
     two = np.nonzero(count == 2)[0]
@@ -254,8 +255,8 @@ def _contour_tiles(field, tiles, f):
         # cuts off corners (r, c+1) and (r+1, c); otherwise it cuts off (r, c) and (r+1, c+1).
         ends_a += [(four, np.zeros(len(four), int)), (four, np.where(joined, 2, 1))]
         ends_b += [(four, np.where(joined, 3, 2)), (four, np.where(joined, 1, 3))]
-    cell_a = np.concatenate([e[0] for e in ends_a]); slot_a = np.concatenate([e[1] for e in ends_a])
-    cell_b = np.concatenate([e[0] for e in ends_b]); slot_b = np.concatenate([e[1] for e in ends_b])
+    cell_a, slot_a = (np.concatenate(part) for part in zip(*ends_a))
+    cell_b, slot_b = (np.concatenate(part) for part in zip(*ends_b))
     all_ids = np.concatenate([ids[cell_a, slot_a], ids[cell_b, slot_b]])
     all_xy = np.column_stack([np.concatenate([x[cell_a, slot_a], x[cell_b, slot_b]]),
                               np.concatenate([y[cell_a, slot_a], y[cell_b, slot_b]])])
@@ -285,7 +286,6 @@ def _tiles_beyond_open_ends(field, tiles, polylines):
     """Tiles that continue open polylines cut by the edge of the computed area."""
     computed = np.zeros(field.tiles.grid_shape, bool)
     computed[tiles[:, 0], tiles[:, 1]] = True
-    ny, nx = field.shape
     extra = set()
     for xy, closed in polylines:
         if closed:

@@ -28,7 +28,6 @@ import warnings
 
 import numpy as np
 import astropy.units as u
-from astropy.coordinates import SkyCoord
 from astropy.wcs import WCS
 from astropy.wcs.utils import proj_plane_pixel_scales
 from scipy import ndimage
