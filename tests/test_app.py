@@ -1,6 +1,7 @@
 """The web page: the picture-to-sky mapping, the knot state, and the page run by AppTest."""
 
 import math
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -102,15 +103,14 @@ def test_pan_stops_at_the_edges():
     assert whole.height == 300
 
 
-def test_click_position_is_the_centre_of_the_css_pixel_and_follows_the_rendered_size():
+def test_click_position_follows_the_rendered_size():
     viewport = Viewport.around((80, 60), 1, (120, 160), 640)
-    # Whole and fractional pointer offsets within one CSS pixel give the same position.
-    a = click_display_position({"x": 100, "y": 50, "width": 640, "height": 480}, viewport)
-    b = click_display_position({"x": 100.7, "y": 50.2, "width": 640, "height": 480}, viewport)
-    assert a == b == (100.5, 50.5)
-    # A picture shown at half its size: CSS pixels are twice as large.
-    c = click_display_position({"x": 50, "y": 25, "width": 320, "height": 240}, viewport)
-    assert c == (101.0, 51.0)
+    assert click_display_position({"x": 100, "y": 50, "width": 640, "height": 480},
+                                  viewport) == (100.0, 50.0)
+    # A picture shown at half its size: each CSS pixel covers two picture pixels.
+    assert click_display_position({"x": 50, "y": 25, "width": 320, "height": 240},
+                                  viewport) == (100.0, 50.0)
+    assert click_display_position({"x": 50, "y": 25}, viewport) == (50.0, 25.0)
 
 
 # ---------------------------------------------------------------------------- knot state
@@ -182,3 +182,251 @@ def test_labels_relabel_and_remove():
     page_state.relabel_candidates(state, ["1a", "1b", "2a"])
     page_state.remove_candidates(state, [1])
     assert page_state.candidate_labels(state) == ["1a", "2a"]
+
+
+# ---------------------------------------------------------------------------- the page (AppTest)
+APP = str(Path(__file__).resolve().parents[1] / "app.py")
+
+
+def run_page(app=None):
+    from streamlit.testing.v1 import AppTest
+
+    app = app or AppTest.from_file(APP, default_timeout=240)
+    app.run()
+    assert not app.exception, app.exception[0].message if app.exception else ""
+    return app
+
+
+def demo_inputs():
+    from lensview.page.inputs import demo_scene
+
+    return demo_scene()
+
+
+def click_on(app, coord, stamp):
+    """Hand the page a click on a sky position, as the click component reports it."""
+    viewport = app.session_state[page_state.VIEWPORT]
+    x, y = app.session_state["lv_scene"].cutout.wcs.world_to_pixel(coord)
+    u_display, v_display = viewport.cutout_to_display(float(x), float(y))
+    click = {"x": round(u_display), "y": round(v_display), "width": viewport.width,
+             "height": viewport.height, "unix_time": stamp}
+    app.session_state["lv_click"] = click
+    run_page(app)
+    # Where that click lands on the sky, through the page's one mapping (tested above).
+    return app.session_state["lv_scene"].cutout.wcs.pixel_to_world(
+        *viewport.display_to_cutout(*click_display_position(click, viewport)))
+
+
+def shown_table(app, index=0):
+    return app.table[index].value
+
+
+def expected_offsets(coords, scene, z_source):
+    """The library's measurement, the page's only source of numbers."""
+    import lensview as lv
+
+    return lv.measure_candidates(coords, scene.fields, z_source, cosmology=scene.cosmology)
+
+
+def demo_knot(scene, k=0):
+    return SkyCoord(scene.knots["ra"][k], scene.knots["dec"][k], unit=u.deg)
+
+
+def test_page_opens_on_the_demo_with_its_models_and_curves():
+    app = run_page()
+    scene = app.session_state["lv_scene"]
+    assert scene.key.startswith("demo")
+    assert not app.error
+    assert app.slider(key="lv_z_source").value == pytest.approx(scene.z_source)
+    assert len(scene.fields) >= 2
+    # Curves exist at the demo's source redshift and the picture was drawn.
+    assert all(len(f.critical_curves(scene.z_source)) for f in scene.fields)
+    viewport = app.session_state[page_state.VIEWPORT]
+    assert (viewport.nx, viewport.ny) == scene.cutout.data.shape[::-1]
+    assert any("model estimates" in w.value for w in app.warning)
+    assert [d.label for d in app.download_button][:1] == ["Download regions"]
+
+
+def test_click_adds_a_knot_measured_by_the_library():
+    app = run_page()
+    scene = app.session_state["lv_scene"]
+    clicked = click_on(app, demo_knot(scene, 0), stamp=1)
+    marks = app.session_state[page_state.CANDIDATES]
+    assert len(marks) == 1 and marks[0]["label"] == "K1"
+    got = SkyCoord(marks[0]["ra"], marks[0]["dec"], unit=u.deg)
+    assert got.separation(clicked).to_value(u.arcsec) < 1e-6
+    # The click lands within one display pixel of the knot it aimed at.
+    pixel = scene.cutout.wcs.proj_plane_pixel_scales()[0].to_value(u.arcsec)
+    assert got.separation(demo_knot(scene, 0)).to_value(u.arcsec) < pixel
+    table = shown_table(app)
+    expected = expected_offsets(got, scene, scene.z_source)
+    assert list(table["model"]) == list(expected["model"])
+    np.testing.assert_allclose(table["offset (arcsec)"].astype(float),
+                               np.asarray(expected["offset_arcsec"]), atol=6e-5)
+    np.testing.assert_allclose(table["\u03bc (signed)"].astype(float),
+                               np.asarray(expected["mu"]), rtol=1e-2, atol=6e-3)
+    # The spread table has one row per knot.
+    assert len(shown_table(app, 1)) == 1
+    # A second rerun with the same component value marks nothing new.
+    run_page(app)
+    assert len(app.session_state[page_state.CANDIDATES]) == 1
+
+
+def test_redshift_change_updates_the_measurements_at_once():
+    app = run_page()
+    scene = app.session_state["lv_scene"]
+    first = click_on(app, demo_knot(scene, 1), stamp=1)
+    second = click_on(app, demo_knot(scene, 2), stamp=2)
+    before = shown_table(app)["offset (arcsec)"].astype(float)
+    z_new = round(scene.z_source + 1.1, 2)
+    app.slider(key="lv_z_source").set_value(z_new)
+    run_page(app)
+    after = shown_table(app)
+    expected = expected_offsets(SkyCoord([first, second]), scene, z_new)
+    np.testing.assert_allclose(after["offset (arcsec)"].astype(float),
+                               np.asarray(expected["offset_arcsec"]), atol=6e-5)
+    assert np.any(np.abs(after["offset (arcsec)"].astype(float) - before) > 1e-3)
+
+
+def test_source_redshift_at_the_lens_is_an_error_and_keeps_the_knots():
+    app = run_page()
+    scene = app.session_state["lv_scene"]
+    click_on(app, demo_knot(scene, 0), stamp=1)
+    app.slider(key="lv_z_source").set_value(round(scene.z_lens - 0.05, 2))
+    run_page(app)
+    assert any("at or below the lens" in e.value for e in app.error)
+    assert len(app.session_state[page_state.CANDIDATES]) == 1
+
+
+def test_downloads_are_produced_and_read_back():
+    import json
+
+    from astropy.table import Table
+    from regions import PointPixelRegion, Regions
+
+    from lensview.export import load_session
+    from lensview.page.takeaway import DOWNLOADS
+
+    app = run_page()
+    scene = app.session_state["lv_scene"]
+    for k in range(3):
+        click_on(app, demo_knot(scene, k), stamp=k + 1)
+    producers = app.session_state[DOWNLOADS]
+    files = {name: produce() for name, produce in producers.items()}
+    by_suffix = {Path(name).suffix: content for name, content in files.items()}
+    # FITS region table read back with the regions library (its own reader).
+    import io as _io
+    import tempfile
+
+    with tempfile.TemporaryDirectory() as folder:
+        path = Path(folder) / "regions.fits"
+        path.write_bytes(by_suffix[".fits"])
+        regions = Regions.read(path, format="fits")
+    points = [r for r in regions if isinstance(r, PointPixelRegion)]
+    assert len(points) == 3
+    marks = app.session_state[page_state.CANDIDATES]
+    x, y = scene.cutout.wcs.world_to_pixel(SkyCoord([m["ra"] for m in marks],
+                                                    [m["dec"] for m in marks], unit=u.deg))
+    np.testing.assert_allclose(sorted(p.center.x for p in points), sorted(x), atol=1e-6)
+    table = Table.read(by_suffix[".ecsv"].decode(), format="ascii.ecsv")
+    assert len(table) == 3 * len(scene.fields)
+    assert table["offset_arcsec"].unit == u.arcsec
+    assert by_suffix[".png"][:8] == b"\x89PNG\r\n\x1a\n" and len(by_suffix[".png"]) > 20_000
+    session = load_session(by_suffix[".json"], available_files=scene.files)
+    assert [c.label for c in session.candidates] == ["K1", "K2", "K3"]
+    assert json.loads(by_suffix[".json"])["z_source"] == pytest.approx(scene.z_source)
+
+
+def test_session_and_catalogue_come_back():
+    from lensview.page.takeaway import DOWNLOADS
+
+    app = run_page()
+    scene = app.session_state["lv_scene"]
+    for k in range(2):
+        click_on(app, demo_knot(scene, k), stamp=k + 1)
+    saved = app.session_state[page_state.CANDIDATES]
+    session = next(p for name, p in app.session_state[DOWNLOADS].items()
+                   if name.endswith(".json"))()
+    app.button(key="lv_clear_knots").click()
+    run_page(app)
+    assert app.session_state[page_state.CANDIDATES] == []
+    app.file_uploader(key="lv_up_session").set_value(("mine.json", session, "application/json"))
+    run_page(app)
+    app.button(key="lv_restore").click()
+    run_page(app)
+    restored = app.session_state[page_state.CANDIDATES]
+    assert [m["label"] for m in restored] == [m["label"] for m in saved]
+    np.testing.assert_allclose([m["ra"] for m in restored], [m["ra"] for m in saved], atol=1e-12)
+    # A session saved with another cutout says which file differs and changes nothing.
+    import json
+
+    document = json.loads(session)
+    document["inputs"]["cutout"]["sha256"] = "0" * 64
+    app.file_uploader(key="lv_up_session").set_value(
+        ("other.json", json.dumps(document).encode(), "application/json"))
+    run_page(app)
+    app.button(key="lv_restore").click()
+    run_page(app)
+    assert any("differs" in e.value for e in app.error)
+    assert len(app.session_state[page_state.CANDIDATES]) == 2
+    # A catalogue of the user's own, with RA/Dec columns, replaces the knots.
+    catalogue = b"RAJ2000,DEJ2000,name\n" + "\n".join(
+        f"{m['ra']:.8f},{m['dec']:.8f},cat{k}" for k, m in enumerate(saved)).encode() + b"\n"
+    app.file_uploader(key="lv_up_catalogue").set_value(("mine.csv", catalogue, "text/csv"))
+    run_page(app)
+    app.button(key="lv_cat_replace").click()
+    run_page(app)
+    assert [m["label"] for m in app.session_state[page_state.CANDIDATES]] == ["cat0", "cat1"]
+
+
+def fits_bytes(data, wcs=None, extra=()):
+    import io as _io
+
+    hdus = [fits.PrimaryHDU(data, header=wcs.to_header() if wcs is not None else None)]
+    hdus += [fits.ImageHDU(d, header=w.to_header() if w is not None else None) for d, w in extra]
+    buffer = _io.BytesIO()
+    fits.HDUList(hdus).writeto(buffer)
+    return buffer.getvalue()
+
+
+def test_bad_uploads_show_the_reason_and_keep_the_knots():
+    app = run_page()
+    scene = app.session_state["lv_scene"]
+    click_on(app, demo_knot(scene, 0), stamp=1)
+    app.radio(key="lv_source").set_value("My files")
+    run_page(app)
+    cutout = app.file_uploader(key="lv_up_cutout")
+    cutout.set_value(("notes.fits", b"this is not a FITS file at all", "application/fits"))
+    run_page(app)
+    assert any("not a readable FITS file" in e.value for e in app.error)
+    assert len(app.session_state[page_state.CANDIDATES]) == 1
+    # The page keeps showing the last field that loaded.
+    assert app.session_state["lv_scene"].key == scene.key
+
+    image = np.ones((40, 40), np.float32)
+    app.file_uploader(key="lv_up_cutout").set_value(
+        ("plain.fits", fits_bytes(image), "application/fits"))
+    run_page(app)
+    assert any("WCS" in e.value for e in app.error)
+
+    # A valid cutout with a model whose two maps differ in shape.
+    wcs = small_wcs((40, 40))
+    app.file_uploader(key="lv_up_cutout").set_value(
+        ("cutout.fits", fits_bytes(image, wcs), "application/fits"))
+    app.file_uploader(key="lv_up_model_0").set_value([
+        ("m_x.fits", fits_bytes(np.zeros((40, 40), np.float32), wcs), "application/fits"),
+        ("m_y.fits", fits_bytes(np.zeros((30, 40), np.float32), small_wcs((30, 40))),
+         "application/fits")])
+    run_page(app)
+    assert any("pixels but the y map" in e.value for e in app.error)
+
+    # A model that lies elsewhere on the sky.
+    far = small_wcs((40, 40))
+    far.wcs.crval = [30.0, 40.0]
+    far.wcs.set()
+    alpha = np.full((40, 40), 0.5, np.float32)
+    app.file_uploader(key="lv_up_model_0").set_value(
+        [("far.fits", fits_bytes(alpha, far, extra=[(alpha, far)]), "application/fits")])
+    run_page(app)
+    assert any("does not cover any part of the cutout" in e.value for e in app.error)
+    assert len(app.session_state[page_state.CANDIDATES]) == 1

@@ -101,10 +101,21 @@ def render_base_layer(data, viewport, *, stretch, limits, cmap, curves=(), model
             levels = ", ".join(f"{level:g}" for level in sorted(contour_levels))
             handles.append(Line2D([], [], color="#7F7F7F", linestyle=":", linewidth=0.8,
                                   label=f"|\u03bc| = {levels}"))
+        handles += [
+            Line2D([], [], linestyle="none", marker="o", markersize=7, markerfacecolor="none",
+                   markeredgecolor=_hex(KNOT_COLOUR), markeredgewidth=1.5, label="marked knot"),
+            Line2D([], [], linestyle="none", marker="s", markersize=7, markerfacecolor="none",
+                   markeredgecolor=_hex(COUNTERIMAGE_COLOUR), markeredgewidth=1.5,
+                   label="predicted counter-image"),
+        ]
         ax.legend(handles=handles, loc="upper right", fontsize=8, framealpha=0.8)
     fig.canvas.draw()
     rgba = np.asarray(fig.canvas.buffer_rgba())
     return np.ascontiguousarray(rgba[:viewport.height, :viewport.width, :3])
+
+
+def _hex(rgb):
+    return "#" + "".join(f"{c:02X}" for c in rgb)
 
 
 def draw_marks(base, viewport, knots=(), links=(), counterimages=()):

@@ -126,13 +126,14 @@ class Viewport:
 
 
 def click_display_position(value, viewport):
-    """Display position of the pixel a click landed on.
+    """Display position of a click, in the picture's own pixels.
 
     The click component reports the pointer offset within the rendered
-    picture (whole CSS pixels in most browsers, fractions in some) and the
-    size the picture was rendered at. The click is taken at the centre of the
-    CSS pixel under the pointer, which does not depend on how the browser
-    rounds, then scaled from the rendered size to the picture's own size.
+    picture and the size the picture was rendered at (the browser may show
+    it smaller or larger than it was drawn). Browsers report the offset in
+    whole CSS pixels (Chromium rounds the pointer position), which is taken
+    as the position itself; it is then scaled from the rendered size to the
+    picture's own size.
 
     Parameters
     ----------
@@ -148,9 +149,8 @@ def click_display_position(value, viewport):
     """
     shown_width = float(value.get("width") or viewport.width)
     shown_height = float(value.get("height") or viewport.height)
-    u = (math.floor(float(value["x"])) + 0.5) * viewport.width / shown_width
-    v = (math.floor(float(value["y"])) + 0.5) * viewport.height / shown_height
-    return u, v
+    return (float(value["x"]) * viewport.width / shown_width,
+            float(value["y"]) * viewport.height / shown_height)
 
 
 def _start(center, n, total):

@@ -1,0 +1,356 @@
+"""Sidebar panel "Field and models": what is loaded, at which redshifts, in which cosmology.
+
+Heavy objects (cutouts, deflection fields with their cached derivative terms
+and curves) are kept with ``st.cache_resource`` keyed by the SHA-256 of the
+files' bytes, so a rerun, a new source redshift or a click reuses them. The
+checksum of an upload is computed once per upload (keyed by its file id).
+Every `LensviewInputError` becomes a readable message; the page then keeps
+showing the last field that loaded, and the marked knots are untouched.
+"""
+
+import hashlib
+import io
+from dataclasses import dataclass, field as dataclass_field
+from pathlib import Path
+
+import streamlit as st
+
+from ..errors import LensviewInputError
+
+__all__ = ["Scene", "inputs_panel", "demo_scene", "cosmology_from_choice"]
+
+_SCENE = "lv_scene"
+_CHECKSUMS = "lv_upload_checksums"
+_MAX_MODELS = 8
+PLANCK = "Planck18"
+FLAT = "flat \u039bCDM (H0, \u03a9m)"
+
+
+@dataclass
+class Scene:
+    """The inputs the page works on.
+
+    Attributes
+    ----------
+    key : str
+        Identity of the inputs (checksums and settings); changes whenever any
+        of them changes.
+    title : str
+    cutout : `~lensview.fitsio.Cutout`
+    fields : list of `~lensview.DeflectionField`
+    z_lens : float
+    cosmology : `~astropy.cosmology.Cosmology`
+    cutout_file : `~lensview.export.InputFile` or None
+        Name and checksum of the cutout (for session files).
+    model_inputs : list of `~lensview.export.ModelInputs`
+    files : dict
+        File name -> bytes or path of every input, to check a session against.
+    knots : `~astropy.table.Table` or None
+        Knots that come with the inputs (the demo's).
+    z_source : float
+        Suggested source redshift.
+    """
+
+    key: str
+    title: str
+    cutout: object
+    fields: list
+    z_lens: float
+    cosmology: object
+    cutout_file: object = None
+    model_inputs: list = dataclass_field(default_factory=list)
+    files: dict = dataclass_field(default_factory=dict)
+    knots: object = None
+    z_source: float = 2.0
+
+
+# ---------------------------------------------------------------------------- cached loaders
+def _checksum(content):
+    return hashlib.sha256(content).hexdigest()
+
+
+def _named_bytes(name, content):
+    buffer = io.BytesIO(content)
+    buffer.name = name
+    return buffer
+
+
+@st.cache_resource(max_entries=4, show_spinner=False)
+def _cached_cutout(sha256, name, _content):
+    from ..fitsio import read_cutout
+
+    return read_cutout(_named_bytes(name, _content))
+
+
+@st.cache_resource(max_entries=16, show_spinner=False)
+def _cached_field(checksums, names, units, z_lens, z_norm, cosmology_key, model_name, _contents):
+    from ..deflection import DeflectionField
+
+    sources = [_named_bytes(n, c) for n, c in zip(names, _contents)]
+    return DeflectionField.from_fits(*sources, units=units, z_lens=z_lens, z_norm=z_norm,
+                                     cosmology=cosmology_from_key(cosmology_key), name=model_name)
+
+
+@st.cache_resource(max_entries=2, show_spinner=False)
+def _cached_demo(checksums):
+    from ..demo import load_demo
+
+    return load_demo()
+
+
+@st.cache_resource(max_entries=8, show_spinner=False)
+def _cached_refit(demo_checksums, index, z_lens, cosmology_key):
+    """A demo model again, for another lens redshift or cosmology."""
+    from ..deflection import DeflectionField
+
+    _, fields, _ = _cached_demo(demo_checksums)
+    original = fields[index]
+    ax, ay = original.node_deflection(slice(None), slice(None))
+    return DeflectionField(ax, ay, original.wcs, units="pixel", z_lens=z_lens,
+                           z_norm=original.z_norm, cosmology=cosmology_from_key(cosmology_key),
+                           name=original.name)
+
+
+def _demo_files():
+    """Name -> path of the demo scenario's files, and their checksums."""
+    from .. import demo
+
+    directory = Path(getattr(demo, "DEMO_DIRECTORY", Path(__file__).resolve().parents[2]
+                             / "sample_images"))
+    paths = sorted(p for p in directory.glob("*") if p.is_file() and p.name != "README.md")
+    files = {p.name: p for p in paths}
+    checksums = tuple((p.name, _checksum(p.read_bytes())) for p in paths)
+    return files, checksums
+
+
+@st.cache_resource(show_spinner=False)
+def _demo_checksums_once():
+    return _demo_files()
+
+
+def cosmology_key(choice, h0=70.0, om0=0.3):
+    return (PLANCK,) if choice == PLANCK else ("flat", float(h0), float(om0))
+
+
+def cosmology_from_key(key):
+    return cosmology_from_choice(*key) if key[0] != PLANCK else cosmology_from_choice(PLANCK)
+
+
+def cosmology_from_choice(choice, h0=70.0, om0=0.3):
+    """Planck18, or a flat LCDM cosmology with the given H0 (km/s/Mpc) and Om0."""
+    if choice == PLANCK:
+        from astropy.cosmology import Planck18
+
+        return Planck18
+    from astropy.cosmology import FlatLambdaCDM
+
+    if not (0 < om0 <= 1.5 and 10 <= h0 <= 200):
+        raise LensviewInputError(
+            f"A flat \u039bCDM cosmology needs 10 <= H0 <= 200 km/s/Mpc and 0 < \u03a9m <= 1.5; "
+            f"got H0 = {h0}, \u03a9m = {om0}.")
+    return FlatLambdaCDM(H0=h0, Om0=om0, Tcmb0=0.0)
+
+
+# ---------------------------------------------------------------------------- scenes
+def demo_scene(z_lens=None, cosmology_choice=(PLANCK,)):
+    """The bundled demo field (invented data), optionally at another z_lens or cosmology."""
+    from ..export import InputFile, ModelInputs
+
+    files, checksums = _demo_checksums_once()
+    cutout, fields, knots = _cached_demo(checksums)
+    demo_z_lens = fields[0].z_lens
+    z_lens = demo_z_lens if z_lens is None else float(z_lens)
+    if z_lens != demo_z_lens or cosmology_choice != (PLANCK,):
+        fields = [_cached_refit(checksums, k, z_lens, cosmology_choice) for k in range(len(fields))]
+    cutout_name = Path(cutout.path).name if cutout.path else None
+    by_name = dict(checksums)
+    cutout_file = InputFile(cutout_name, by_name[cutout_name]) if cutout_name in by_name else None
+    model_inputs = []
+    for fld in fields:
+        names = [n for n in by_name if _demo_file_of_model(n, fld.name)]
+        model_inputs.append(ModelInputs(fld.name, tuple(InputFile(n, by_name[n]) for n in names),
+                                        "pixel" if fld.units == "pixel" else "arcsec", fld.z_norm))
+    from .. import demo
+
+    z_source = float(getattr(demo, "Z_SOURCE", 2.0))
+    key = "demo|" + "|".join(s for _, s in checksums) + f"|{z_lens}|{cosmology_choice}"
+    return Scene(key=key, title="Demo field (invented data)", cutout=cutout, fields=list(fields),
+                 z_lens=z_lens, cosmology=fields[0].cosmology, cutout_file=cutout_file,
+                 model_inputs=model_inputs, files=files, knots=knots, z_source=z_source)
+
+
+def _demo_file_of_model(file_name, model_name):
+    stem = file_name.lower()
+    return stem.endswith((".fits", ".fits.gz")) and model_name.lower().replace(" ", "_") in stem
+
+
+def _upload_content(state, upload):
+    """Bytes and SHA-256 of an upload, hashing each upload only once."""
+    checksums = state.setdefault(_CHECKSUMS, {})
+    content = upload.getvalue()
+    file_id = getattr(upload, "file_id", None) or upload.name
+    if file_id not in checksums:
+        checksums[file_id] = _checksum(content)
+    return content, checksums[file_id]
+
+
+def files_scene(state, cutout_upload, model_specs, z_lens, cosmology_choice):
+    """A scene from uploaded files.
+
+    Parameters
+    ----------
+    cutout_upload : UploadedFile
+    model_specs : list of dict
+        ``name``, ``uploads`` (one or two files), ``units``, ``z_norm``.
+    z_lens : float
+    cosmology_choice : tuple
+        `cosmology_key` of the chosen cosmology.
+
+    Raises
+    ------
+    LensviewInputError
+        For any unusable file or setting.
+    """
+    from ..export import InputFile, ModelInputs
+
+    if cutout_upload is None:
+        raise LensviewInputError("No image cutout is loaded; upload a FITS cutout first.")
+    content, sha = _upload_content(state, cutout_upload)
+    cutout = _cached_cutout(sha, cutout_upload.name, content)
+    files = {cutout_upload.name: content}
+    fields, model_inputs = [], []
+    names_seen = set()
+    for k, spec in enumerate(model_specs):
+        uploads = spec["uploads"]
+        if not uploads:
+            raise LensviewInputError(
+                f"Model {k + 1} has no file; upload one file (two image HDUs or a two-plane cube) "
+                "or two files (x then y), or lower the number of models.")
+        if len(uploads) > 2:
+            raise LensviewInputError(
+                f"Model {k + 1} has {len(uploads)} files; give one file or two (x then y).")
+        name = spec["name"].strip() or f"model {k + 1}"
+        if name in names_seen:
+            raise LensviewInputError(f"Two models are named {name!r}; give each model its own name.")
+        names_seen.add(name)
+        pairs = [_upload_content(state, up) for up in uploads]
+        contents = tuple(c for c, _ in pairs)
+        checksums = tuple(s for _, s in pairs)
+        upload_names = tuple(up.name for up in uploads)
+        field = _cached_field(checksums, upload_names, spec["units"], float(z_lens), spec["z_norm"],
+                              cosmology_choice, name, contents)
+        fields.append(field)
+        model_inputs.append(ModelInputs(name, tuple(InputFile(n, s) for n, s in
+                                                    zip(upload_names, checksums)),
+                                        spec["units"], spec["z_norm"]))
+        files.update(dict(zip(upload_names, contents)))
+    if not fields:
+        raise LensviewInputError("No lens model is loaded; upload at least one deflection model.")
+    for field in fields:
+        require_overlap(cutout, field)
+    key = "files|" + sha + "|" + "|".join(
+        f"{m.name}:{','.join(f.sha256 for f in m.files)}:{m.units}:{m.z_norm}" for m in model_inputs
+    ) + f"|{float(z_lens)}|{cosmology_choice}"
+    title = f"{cutout_upload.name} with {len(fields)} model(s)"
+    return Scene(key=key, title=title, cutout=cutout, fields=fields, z_lens=float(z_lens),
+                 cosmology=fields[0].cosmology, cutout_file=InputFile(cutout_upload.name, sha),
+                 model_inputs=model_inputs, files=files)
+
+
+def require_overlap(cutout, field, samples=17):
+    """Raise if a model covers no part of the cutout.
+
+    The check samples the cutout on a grid and asks the model which sample
+    positions it covers (`~lensview.DeflectionField.contains`).
+    """
+    import numpy as np
+
+    ny, nx = cutout.data.shape
+    xs, ys = np.meshgrid(np.linspace(0, nx - 1, samples), np.linspace(0, ny - 1, samples))
+    coords = cutout.wcs.pixel_to_world(xs.ravel(), ys.ravel())
+    if not np.any(field.contains(coords)):
+        centre = cutout.wcs.pixel_to_world((nx - 1) / 2, (ny - 1) / 2)
+        raise LensviewInputError(
+            f"Model {field.name!r} does not cover any part of the cutout (centred on RA "
+            f"{centre.ra.deg:.5f}, Dec {centre.dec.deg:.5f}); upload a model of this field, or a "
+            "cutout inside the model's footprint.")
+
+
+# ---------------------------------------------------------------------------- the panel
+def inputs_panel(state):
+    """Draw the sidebar inputs and return (scene, errors).
+
+    ``scene`` is the field to show: the one just loaded, or the last one that
+    loaded when the current inputs fail; ``errors`` lists the messages.
+    """
+    sidebar = st.sidebar
+    sidebar.subheader("Field and models")
+    source = sidebar.radio("Work on", ["Demo field", "My files"], key="lv_source",
+                           horizontal=True,
+                           help="The demo is an invented cluster field with two lens models.")
+    sidebar.subheader("Lens and cosmology")
+    choice = sidebar.radio("Cosmology", [PLANCK, FLAT], key="lv_cosmology", horizontal=True)
+    h0, om0 = 70.0, 0.3
+    if choice == FLAT:
+        left, right = sidebar.columns(2)
+        h0 = left.number_input("H0 (km/s/Mpc)", 10.0, 200.0, 70.0, 0.5, key="lv_h0")
+        om0 = right.number_input("\u03a9m", 0.01, 1.5, 0.3, 0.01, key="lv_om0")
+    errors = []
+    try:
+        key = cosmology_key(choice, h0, om0)
+        cosmology_from_key(key)
+    except LensviewInputError as error:
+        errors.append(str(error))
+        key = (PLANCK,)
+
+    scene = None
+    try:
+        if source == "Demo field":
+            default_z_lens = demo_scene(None, (PLANCK,)).z_lens
+            z_lens = sidebar.number_input("Lens redshift", 0.01, 5.0, float(default_z_lens), 0.01,
+                                          format="%.3f", key="lv_z_lens_demo")
+            with st.spinner("Loading the demo field..."):
+                scene = demo_scene(z_lens, key)
+        else:
+            z_lens = sidebar.number_input("Lens redshift", 0.01, 5.0, 0.4, 0.01, format="%.3f",
+                                          key="lv_z_lens_files")
+            cutout_upload, specs = _file_widgets(sidebar)
+            with st.spinner("Reading the files and preparing the models..."):
+                scene = files_scene(state, cutout_upload, specs, z_lens, key)
+    except LensviewInputError as error:
+        errors.append(str(error))
+    if scene is not None:
+        state[_SCENE] = scene
+    return state.get(_SCENE), errors
+
+
+def _file_widgets(sidebar):
+    cutout_upload = sidebar.file_uploader(
+        "Image cutout (FITS)", key="lv_up_cutout",
+        help="A 2-D image with a celestial WCS; the first such HDU is used.")
+    count = int(sidebar.number_input("Number of lens models", 1, _MAX_MODELS, 1, 1,
+                                     key="lv_n_models"))
+    specs = []
+    for k in range(count):
+        with sidebar.expander(f"Lens model {k + 1}", expanded=k == 0):
+            uploads = st.file_uploader(
+                "Deflection maps", accept_multiple_files=True, key=f"lv_up_model_{k}",
+                help="One FITS file with two image HDUs or a two-plane cube, or two files "
+                     "(x component, then y).")
+            uploads = sorted(uploads or [], key=lambda up: up.name)
+            if len(uploads) == 2:
+                swap = st.checkbox(f"x map: {uploads[0].name} \u2014 swap x and y",
+                                   key=f"lv_swap_{k}")
+                if swap:
+                    uploads = uploads[::-1]
+            default_name = Path(uploads[0].name).name.split(".")[0] if uploads else f"model {k + 1}"
+            name = st.text_input("Name", value=default_name, key=f"lv_name_{k}_{default_name}")
+            units = st.selectbox("Deflection units", ["arcsec", "pixel"], key=f"lv_units_{k}")
+            norm = st.radio("Normalisation", ["D_ls/D_s = 1", "made for a source redshift"],
+                            key=f"lv_norm_{k}")
+            z_norm = None
+            if norm != "D_ls/D_s = 1":
+                z_norm = float(st.number_input("Reference source redshift", 0.02, 20.0, 2.0, 0.01,
+                                               key=f"lv_znorm_{k}"))
+        specs.append(dict(name=name, uploads=uploads, units=units, z_norm=z_norm))
+    return cutout_upload, specs
