@@ -1,18 +1,27 @@
 """Analytic lens profiles rendered onto WCS grids (tests and the demo).
 
 Profiles live in the map's own intermediate world plane: for a TAN WCS the
-plane coordinates (x East, y North, arcsec, about the reference point) are an
-affine function of the pixel coordinates, so analytic and numerical
-quantities share one frame exactly. Each profile is described for the map
-normalisation D_ls/D_s = 1 and evaluates on offsets from its own centre:
+plane coordinates (x East, y North, arcsec, about the reference point) are
+an affine function of the pixel coordinates, plane = CD (pix - crpix), so
+analytic and numerical quantities share one frame exactly. A profile centre
+given on the sky is placed in that plane through the WCS.
 
-* ``deflection(dx, dy)`` -> (alpha_x, alpha_y) in arcsec (East, North),
-* ``convergence(dx, dy)``,
-* ``jacobian(dx, dy)`` -> (a11, a12, a21, a22) = d alpha_i / d theta_j, by
-  complex-step differentiation (Squire & Trapp 1998, SIAM Review 40, 110),
-  exact to rounding because every deflection here is real-analytic.
+Every profile is described for the map normalisation D_ls/D_s = 1 (its
+Einstein radius, convergence scale or shear are those of a source with
+D_ls/D_s = 1; multiply deflections by D_ls/D_s for a real source). Each one
+evaluates on offsets (x, y) from its own centre, East and North in arcsec:
 
-Position angles are measured from North through East.
+* ``deflection(x, y)`` -> (alpha_x, alpha_y) in arcsec along East, North,
+* ``convergence(x, y)``,
+* ``jacobian(x, y)`` -> (a11, a12, a21, a22) = d alpha_i / d theta_j, by
+  complex-step differentiation (Squire & Trapp 1998, SIAM Review 40, 110):
+  f'(x) = Im f(x + i h) / h has no subtractive cancellation and an error of
+  order h^2 f''' / f', so with h = 1e-30 arcsec it is exact to rounding
+  (relative ~1e-15) for the real-analytic deflections here.
+
+Position angles are measured from North (y) through East (x). Singular
+profiles (point mass, singular isothermal sphere and ellipsoid) give NaN at
+their exact centre, where the deflection has no value.
 """
 
 import numpy as np
@@ -20,6 +29,8 @@ import astropy.units as u
 from astropy import constants as const
 from astropy.coordinates import SkyCoord
 from astropy.wcs import WCS
+
+from .errors import LensviewInputError
 
 __all__ = [
     "PointMass",
@@ -37,43 +48,143 @@ __all__ = [
     "magnification_map",
 ]
 
-_STEP = 1e-30
+_STEP = 1e-30  # complex step, arcsec
+_SERIES_TERMS = 24  # |w| < 0.05 in the NFW series: 0.05**24 ~ 6e-32
+_SERIES_LIMIT = 0.05
+_BLOCK_PIXELS = 1 << 20  # grid evaluation in blocks of about a million pixels
 
 
-def _arcsec(value):
-    return float(u.Quantity(value, u.arcsec).to_value(u.arcsec))
+# ------------------------------------------------------------------ validation
+def _center(value):
+    if not isinstance(value, SkyCoord) or not value.isscalar:
+        raise LensviewInputError(
+            "A lens centre must be a single SkyCoord, e.g. SkyCoord(150.1 * u.deg, 2.2 * u.deg).")
+    return value.icrs
 
 
-def _angle(value):
-    return float(u.Quantity(value, u.deg).to_value(u.rad))
+def _arcsec(value, name, *, positive=False, allow_zero=False):
+    try:
+        number = u.Quantity(value, u.arcsec)
+    except (u.UnitsError, TypeError) as error:
+        raise LensviewInputError(
+            f"{name} must be an angle, e.g. 2 * u.arcsec; got {value!r}.") from error
+    number = float(number.to_value(u.arcsec))
+    if not np.isfinite(number) or (positive and (number < 0 or (number == 0 and not allow_zero))):
+        need = "zero or positive" if allow_zero else "positive"
+        raise LensviewInputError(f"{name} must be a finite, {need} angle; got {value!r}.")
+    return number
 
 
-class _Profile:
-    """Shared behaviour: centre handling and complex-step Jacobians."""
+def _position_angle(value, name="pa"):
+    try:
+        return float(u.Quantity(value, u.deg).to_value(u.rad))
+    except (u.UnitsError, TypeError) as error:
+        raise LensviewInputError(
+            f"{name} must be an angle (North through East), e.g. 30 * u.deg; "
+            f"got {value!r}.") from error
 
-    center: SkyCoord
 
-    def jacobian(self, dx, dy):
-        """(a11, a12, a21, a22) = d alpha_i / d theta_j at offsets (arcsec)."""
-        dx = np.asarray(dx, dtype=float)
-        dy = np.asarray(dy, dtype=float)
-        ax_x, ay_x = self.deflection(dx + 1j * _STEP, dy + 0j)
-        ax_y, ay_y = self.deflection(dx + 0j, dy + 1j * _STEP)
-        return (np.imag(ax_x) / _STEP, np.imag(ax_y) / _STEP,
-                np.imag(ay_x) / _STEP, np.imag(ay_y) / _STEP)
+def _number(value, name, low=None):
+    try:
+        number = float(value)
+    except (TypeError, ValueError) as error:
+        raise LensviewInputError(f"{name} must be a number; got {value!r}.") from error
+    if not np.isfinite(number) or (low is not None and number <= low):
+        raise LensviewInputError(f"{name} must be a finite number above {low}; got {value!r}.")
+    return number
 
-    def _rotate_in(self, dx, dy, pa):
-        """Offsets along (major, minor) axes for a position angle pa (radians)."""
-        s, c = np.sin(pa), np.cos(pa)
-        return dx * s + dy * c, dx * c - dy * s
 
-    def _rotate_out(self, a_major, a_minor, pa):
-        s, c = np.sin(pa), np.cos(pa)
-        return a_major * s + a_minor * c, a_major * c - a_minor * s
+def _offsets(x, y):
+    """Offsets as float arrays in arcsec (Quantity or plain numbers)."""
+    def one(value):
+        if isinstance(value, u.Quantity):
+            return np.asarray(value.to_value(u.arcsec), dtype=float)
+        return np.asarray(value, dtype=float)
+    return np.broadcast_arrays(one(x), one(y))
 
 
 def _sqrt(z):
     return np.sqrt(z) if np.iscomplexobj(z) else np.sqrt(np.maximum(z, 0.0))
+
+
+# -------------------------------------------------------------------- profiles
+class _Profile:
+    """Shared behaviour: unit handling and complex-step Jacobians.
+
+    Subclasses implement ``_deflection(x, y)`` with operations that are
+    complex-analytic in x and y, so that the complex step applies.
+    """
+
+    center: SkyCoord
+
+    def deflection(self, x, y):
+        """Deflection at offsets from the centre.
+
+        Parameters
+        ----------
+        x, y : array_like or `~astropy.units.Quantity`
+            Offsets East and North of the centre (plain numbers in arcsec).
+
+        Returns
+        -------
+        alpha_x, alpha_y : ndarray
+            Deflection along East and North in arcsec, for D_ls/D_s = 1.
+        """
+        x, y = _offsets(x, y)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            return self._deflection(x, y)
+
+    def convergence(self, x, y):
+        """Convergence kappa at offsets from the centre (for D_ls/D_s = 1).
+
+        Parameters
+        ----------
+        x, y : array_like or `~astropy.units.Quantity`
+            Offsets East and North of the centre (plain numbers in arcsec).
+
+        Returns
+        -------
+        ndarray
+        """
+        x, y = _offsets(x, y)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            return self._convergence(x, y)
+
+    def jacobian(self, x, y):
+        """Derivatives a_ij = d alpha_i / d theta_j (complex step, exact to rounding).
+
+        Parameters
+        ----------
+        x, y : array_like or `~astropy.units.Quantity`
+            Offsets East and North of the centre (plain numbers in arcsec).
+
+        Returns
+        -------
+        a11, a12, a21, a22 : ndarray
+            d alpha_x/dx, d alpha_x/dy, d alpha_y/dx, d alpha_y/dy, for
+            D_ls/D_s = 1.
+        """
+        x, y = _offsets(x, y)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            ax_x, ay_x = self._deflection(x + 1j * _STEP, y + 0j)
+            ax_y, ay_y = self._deflection(x + 0j, y + 1j * _STEP)
+            # Where the deflection itself is undefined (a singular centre) the step
+            # would return a meaningless number instead.
+            ax, ay = self._deflection(x, y)
+        undefined = ~(np.isfinite(ax) & np.isfinite(ay))
+        return tuple(np.where(undefined, np.nan, np.imag(part) / _STEP)
+                     for part in (ax_x, ax_y, ay_x, ay_y))
+
+    @staticmethod
+    def _to_axes(x, y, pa):
+        """Offsets along the axis at position angle pa and the one 90 degrees East of it."""
+        s, c = np.sin(pa), np.cos(pa)
+        return x * s + y * c, x * c - y * s
+
+    @staticmethod
+    def _from_axes(a_major, a_minor, pa):
+        s, c = np.sin(pa), np.cos(pa)
+        return a_major * s + a_minor * c, a_major * c - a_minor * s
 
 
 class PointMass(_Profile):
@@ -87,21 +198,25 @@ class PointMass(_Profile):
     """
 
     def __init__(self, center, theta_e):
-        self.center = SkyCoord(center).icrs
-        self.theta_e = _arcsec(theta_e)
+        self.center = _center(center)
+        self.theta_e = _arcsec(theta_e, "theta_e", positive=True)
 
-    def deflection(self, dx, dy):
-        r2 = dx * dx + dy * dy
-        return self.theta_e**2 * dx / r2, self.theta_e**2 * dy / r2
+    def _deflection(self, x, y):
+        r2 = x * x + y * y
+        return self.theta_e**2 * x / r2, self.theta_e**2 * y / r2
 
-    def convergence(self, dx, dy):
-        return np.zeros(np.broadcast(dx, dy).shape)
+    def _convergence(self, x, y):
+        # All the mass sits at the centre.
+        return np.where((x == 0) & (y == 0), np.inf, 0.0)
 
 
 class IsothermalSphere(_Profile):
     """Singular or cored isothermal sphere (Narayan & Bartelmann 1996,
-    arXiv:astro-ph/9606001): kappa = theta_E / (2 sqrt(r^2 + r_c^2)),
-    alpha(r) = theta_E (sqrt(r^2 + r_c^2) - r_c) / r.
+    arXiv:astro-ph/9606001, sec. 3).
+
+    kappa = theta_E / (2 sqrt(r^2 + r_c^2)) and
+    alpha(r) = theta_E (sqrt(r^2 + r_c^2) - r_c) / r, evaluated as
+    theta_E r / (sqrt(r^2 + r_c^2) + r_c) to avoid cancellation inside the core.
 
     Parameters
     ----------
@@ -109,52 +224,91 @@ class IsothermalSphere(_Profile):
     theta_e : `~astropy.units.Quantity`
         Einstein radius of the singular sphere for D_ls/D_s = 1.
     core : `~astropy.units.Quantity`
-        Core radius (0 for the singular sphere).
+        Core radius r_c (0 for the singular sphere).
     """
 
     def __init__(self, center, theta_e, core=0 * u.arcsec):
-        self.center = SkyCoord(center).icrs
-        self.theta_e = _arcsec(theta_e)
-        self.core = _arcsec(core)
+        self.center = _center(center)
+        self.theta_e = _arcsec(theta_e, "theta_e", positive=True)
+        self.core = _arcsec(core, "core", positive=True, allow_zero=True)
 
     @classmethod
     def from_velocity_dispersion(cls, sigma, z_lens, z_source, center, cosmology=None,
                                  core=0 * u.arcsec):
-        """Sphere whose Einstein radius for ``z_source`` follows from ``sigma``.
+        """Singular (or cored) sphere of a given one-dimensional velocity dispersion.
 
-        theta_E = 4 pi (sigma / c)^2 D_ls / D_s (Narayan & Bartelmann 1996).
-        The returned profile is normalised to D_ls/D_s = 1, i.e. its
-        ``theta_e`` is 4 pi (sigma/c)^2.
+        theta_E = 4 pi (sigma / c)^2 D_ls / D_s (Narayan & Bartelmann 1996,
+        eq. for the singular isothermal sphere).
+
+        Parameters
+        ----------
+        sigma : `~astropy.units.Quantity`
+            Velocity dispersion.
+        z_lens, z_source : float
+            Redshifts of the lens and of the source the Einstein radius is for.
+        center : `~astropy.coordinates.SkyCoord`
+        cosmology : `~astropy.cosmology.Cosmology`, optional
+            Default `~astropy.cosmology.Planck18`.
+        core : `~astropy.units.Quantity`
+            Core radius.
+
+        Returns
+        -------
+        IsothermalSphere
+            Normalised to D_ls/D_s = 1 like every profile here, so its
+            ``theta_e`` is 4 pi (sigma/c)^2; ``source_theta_e`` holds the
+            Einstein radius for ``z_source`` (arcsec Quantity) and
+            ``z_lens``, ``z_source`` the redshifts.
         """
         from .cosmology import distance_ratio
 
-        distance_ratio(z_lens, z_source, cosmology)  # validates the redshifts
-        theta_unit = 4 * np.pi * (u.Quantity(sigma, u.km / u.s) / const.c).decompose().value**2
-        return cls(center, theta_unit * u.rad, core=core)
+        try:
+            sigma = u.Quantity(sigma, u.km / u.s)
+        except (u.UnitsError, TypeError) as error:
+            raise LensviewInputError(
+                f"sigma must be a velocity, e.g. 250 * u.km / u.s; got {sigma!r}.") from error
+        if not np.isfinite(sigma.value) or sigma.value <= 0:
+            raise LensviewInputError(f"sigma must be a positive velocity; got {sigma!r}.")
+        ratio = distance_ratio(z_lens, z_source, cosmology)
+        unit_theta_e = (4 * np.pi * (sigma / const.c).decompose() ** 2).value * u.rad
+        sphere = cls(center, unit_theta_e.to(u.arcsec), core=core)
+        sphere.z_lens, sphere.z_source = float(z_lens), float(z_source)
+        sphere.source_theta_e = sphere.theta_e * ratio * u.arcsec
+        return sphere
 
-    def deflection(self, dx, dy):
-        r2 = dx * dx + dy * dy
-        r_soft = _sqrt(r2 + self.core**2)
-        scale = self.theta_e * (r_soft - self.core) / r2
-        return scale * dx, scale * dy
+    def _deflection(self, x, y):
+        r2 = x * x + y * y
+        scale = self.theta_e / (_sqrt(r2 + self.core**2) + self.core)
+        return scale * x, scale * y
 
-    def convergence(self, dx, dy):
-        return self.theta_e / (2 * np.sqrt(np.asarray(dx)**2 + np.asarray(dy)**2 + self.core**2))
+    def _convergence(self, x, y):
+        return self.theta_e / (2 * np.sqrt(x * x + y * y + self.core**2))
 
 
 class IsothermalEllipsoid(_Profile):
-    """Singular or cored isothermal ellipsoid (Kormann, Schneider &
-    Bartelmann 1994, A&A 284, 285; Keeton 2001, arXiv:astro-ph/0102341).
+    """Singular or cored isothermal ellipsoid (Kormann, Schneider & Bartelmann
+    1994, A&A 284, 285; deflection in the form of Keeton 2001,
+    arXiv:astro-ph/0102341, sec. 3.1 with alpha = 1).
 
-    Normalised so that kappa = theta_E sqrt(q) / (2 sqrt(q^2 (x'^2 + s^2) + y'^2))
-    with x' along the major axis; the singular ellipsoid's tangential critical
-    curve is then the ellipse q^2 x'^2 + y'^2 = q theta_E^2 (semi-axes
-    theta_E / sqrt(q) and theta_E sqrt(q)), and q -> 1 gives the sphere.
+    Normalisation: with x' along the major axis and y' across it,
+
+        kappa = theta_E / (2 sqrt(q x'^2 + y'^2 / q + q s^2))
+              = theta_E sqrt(q) / (2 sqrt(q^2 (x'^2 + s^2) + y'^2)),
+
+    so the singular ellipsoid (s = 0) has its tangential critical curve, the
+    contour kappa = 1/2 (gamma = kappa for isothermal profiles), on the
+    ellipse q x'^2 + y'^2 / q = theta_E^2 (semi-axes theta_E / sqrt(q) and
+    theta_E sqrt(q), area pi theta_E^2), and q = 1 is the sphere of the same
+    theta_E. With b = theta_E sqrt(q), q' = sqrt(1 - q^2) and
+    psi = sqrt(q^2 (s^2 + x'^2) + y'^2), the deflection is
+    alpha_x' = (b / q') arctan(q' x' / (psi + s)),
+    alpha_y' = (b / q') artanh(q' y' / (psi + q^2 s)).
 
     Parameters
     ----------
     center : `~astropy.coordinates.SkyCoord`
     theta_e : `~astropy.units.Quantity`
+        Einstein radius (as above) for D_ls/D_s = 1.
     q : float
         Axis ratio (minor/major), 0 < q <= 1.
     pa : `~astropy.units.Quantity`
@@ -164,43 +318,68 @@ class IsothermalEllipsoid(_Profile):
     """
 
     def __init__(self, center, theta_e, q, pa, core=0 * u.arcsec):
-        if not 0 < q <= 1:
-            raise ValueError("axis ratio q must be in (0, 1]")
-        self.center = SkyCoord(center).icrs
-        self.theta_e = _arcsec(theta_e)
-        self.q = float(q)
-        self.pa = _angle(pa)
-        self.core = _arcsec(core)
+        self.center = _center(center)
+        self.theta_e = _arcsec(theta_e, "theta_e", positive=True)
+        q = _number(q, "The axis ratio q", low=0.0)
+        if q > 1:
+            raise LensviewInputError(
+                f"The axis ratio q = minor/major must be in (0, 1]; got {q}. Use 1/q and turn "
+                "the position angle by 90 degrees.")
+        self.q = q
+        self.pa = _position_angle(pa)
+        self.core = _arcsec(core, "core", positive=True, allow_zero=True)
 
-    def deflection(self, dx, dy):
-        x, y = self._rotate_in(dx, dy, self.pa)
+    def _deflection(self, x, y):
+        major, minor = self._to_axes(x, y, self.pa)
         q, s = self.q, self.core
-        b = self.theta_e * np.sqrt(q)
-        psi = _sqrt(q * q * (s * s + x * x) + y * y)
-        if q > 1 - 1e-6:
-            r_soft = _sqrt(x * x + y * y + s * s)
-            scale = self.theta_e * (r_soft - s) / (x * x + y * y)
-            a_major, a_minor = scale * x, scale * y
+        if q == 1.0:
+            scale = self.theta_e / (_sqrt(major * major + minor * minor + s * s) + s)
+            a_major, a_minor = scale * major, scale * minor
         else:
-            qp = np.sqrt(1 - q * q)
-            a_major = b / qp * np.arctan(qp * x / (psi + s))
-            a_minor = b / qp * np.arctanh(qp * y / (psi + q * q * s))
-        return self._rotate_out(a_major, a_minor, self.pa)
+            b = self.theta_e * np.sqrt(q)
+            q_prime = np.sqrt((1 - q) * (1 + q))
+            psi = _sqrt(q * q * (s * s + major * major) + minor * minor)
+            a_major = b / q_prime * np.arctan(q_prime * major / (psi + s))
+            a_minor = b / q_prime * np.arctanh(q_prime * minor / (psi + q * q * s))
+        return self._from_axes(a_major, a_minor, self.pa)
 
-    def convergence(self, dx, dy):
-        x, y = self._rotate_in(np.asarray(dx, float), np.asarray(dy, float), self.pa)
+    def _convergence(self, x, y):
+        major, minor = self._to_axes(x, y, self.pa)
         q = self.q
-        return self.theta_e * np.sqrt(q) / (2 * np.sqrt(q * q * (x * x + self.core**2) + y * y))
+        return self.theta_e * np.sqrt(q) / (
+            2 * np.sqrt(q * q * (major * major + self.core**2) + minor * minor))
+
+
+def _g(w):
+    """g(w) = artanh(sqrt w) / sqrt w = sum_k w^k / (2k + 1), analytic through w = 0.
+
+    For w < 0 it equals arctan(sqrt(-w)) / sqrt(-w). Real part of w chooses
+    the form; complex arguments (the complex step) follow the same branch.
+    """
+    w = np.asarray(w)
+    real = np.real(w)
+    series = np.zeros_like(w)
+    for k in range(_SERIES_TERMS - 1, -1, -1):  # Horner
+        series = series * w + 1.0 / (2 * k + 1)
+    root_pos = _sqrt(np.where(real > 0, w, 1.0))
+    root_neg = _sqrt(np.where(real < 0, -w, 1.0))
+    positive = np.arctanh(root_pos) / root_pos
+    negative = np.arctan(root_neg) / root_neg
+    closed_form = np.where(real > 0, positive, negative)
+    return np.where(np.abs(w) < _SERIES_LIMIT, series, closed_form)
 
 
 class NFW(_Profile):
     """Navarro-Frenk-White halo in projection (Wright & Brainerd 2000, ApJ 534,
     34; Bartelmann 1996, A&A 313, 697).
 
-    With x = r / r_s: alpha = 4 kappa_s r_s h(x) / x,
-    h(x) = ln(x/2) + 2/sqrt(1-x^2) artanh sqrt((1-x)/(1+x))   (x < 1),
-    h(x) = ln(x/2) + 2/sqrt(x^2-1) arctan sqrt((x-1)/(x+1))   (x > 1),
-    and the mean convergence inside x is 4 kappa_s h(x) / x^2.
+    With x = r / r_s and F(x) = arccosh(1/x) / sqrt(1 - x^2) (x < 1),
+    arccos(1/x) / sqrt(x^2 - 1) (x > 1), F(1) = 1:
+    kappa = 2 kappa_s (1 - F) / (x^2 - 1), the mean convergence inside x is
+    4 kappa_s h(x) / x^2 with h(x) = ln(x/2) + F(x), and alpha = 4 kappa_s r_s h / x.
+    Here F = 2 g(w) / (1 + x) with w = (1 - x) / (1 + x) and g the series of
+    artanh(sqrt w)/sqrt w, which is smooth through x = 1; h for x < 1/2 is
+    summed in a form without the cancellation of ln(x/2) against F.
 
     Parameters
     ----------
@@ -212,219 +391,375 @@ class NFW(_Profile):
     """
 
     def __init__(self, center, kappa_s, r_s):
-        self.center = SkyCoord(center).icrs
-        self.kappa_s = float(kappa_s)
-        self.r_s = _arcsec(r_s)
+        self.center = _center(center)
+        self.kappa_s = _number(kappa_s, "kappa_s", low=0.0)
+        self.r_s = _arcsec(r_s, "r_s", positive=True)
 
     @staticmethod
     def _h(x):
-        inner = 2 / _sqrt(1 - x * x + 0j) * np.arctanh(_sqrt((1 - x) / (1 + x) + 0j))
-        outer = 2 / _sqrt(x * x - 1 + 0j) * np.arctan(_sqrt((x - 1) / (x + 1) + 0j))
-        with np.errstate(invalid="ignore", divide="ignore"):
-            branch = np.where(np.real(x) < 1, inner, outer)
-        # Both forms tend to 1 at x = 1, where each is 0/0.
-        branch = np.where(np.isclose(np.real(x), 1.0, rtol=0, atol=1e-12), 1.0, branch)
-        h = np.log(x / 2) + branch
-        return h if np.iscomplexobj(x) else np.real(h)
+        w = (1 - x) / (1 + x)
+        general = np.log(x / 2) + 2 * _g(w) / (1 + x)
+        # x < 1/2: h = [(e - 1) ln(x/2) + ln(1 + (e - 1)/2)] / e with e = sqrt(1 - x^2),
+        # e - 1 = -x^2 / (1 + e); both terms are small, nothing cancels.
+        small = np.real(x) < 0.5
+        xs = np.where(small, x, 0.25)
+        e = _sqrt(1 - xs * xs)
+        e_minus_1 = -xs * xs / (1 + e)
+        inner = (e_minus_1 * np.log(xs / 2) + np.log1p(e_minus_1 / 2)) / e
+        return np.where(small, inner, general)
 
-    def deflection(self, dx, dy):
-        r2 = dx * dx + dy * dy
-        r = _sqrt(r2)
-        x = r / self.r_s
-        scale = 4 * self.kappa_s * self.r_s * self._h(x) / x / r
-        return scale * dx, scale * dy
+    def _deflection(self, x, y):
+        r = _sqrt(x * x + y * y)
+        xi = r / self.r_s
+        # alpha / r = 4 kappa_s h(xi) / xi^2 -> 0 like ln(xi) at the centre.
+        scale = np.where(np.real(r) == 0, 0.0, 4 * self.kappa_s * self._h(xi) / (xi * xi))
+        return scale * x, scale * y
 
     def mean_convergence(self, r):
-        """Mean convergence inside radius r (arcsec)."""
-        x = np.asarray(r, float) / self.r_s
-        return 4 * self.kappa_s * self._h(x) / x**2
+        """Mean convergence inside a radius.
 
-    def convergence(self, dx, dy):
-        x = np.sqrt(np.asarray(dx, float)**2 + np.asarray(dy, float)**2) / self.r_s
-        with np.errstate(invalid="ignore", divide="ignore"):
-            f_small = np.arctanh(np.sqrt(np.clip(1 - x * x, 0, None))) / np.sqrt(np.clip(1 - x * x, 1e-300, None))
-            f_large = np.arctan(np.sqrt(np.clip(x * x - 1, 0, None))) / np.sqrt(np.clip(x * x - 1, 1e-300, None))
-        f = np.where(x < 1, f_small, np.where(x > 1, f_large, 1.0))
-        with np.errstate(invalid="ignore", divide="ignore"):
-            kappa = 2 * self.kappa_s * (1 - f) / (x * x - 1)
-        return np.where(np.isclose(x, 1.0), 2 * self.kappa_s / 3, kappa)
+        Parameters
+        ----------
+        r : array_like or `~astropy.units.Quantity`
+            Radius (plain numbers in arcsec).
+
+        Returns
+        -------
+        ndarray
+            4 kappa_s h(x) / x^2 with x = r / r_s (Wright & Brainerd 2000).
+        """
+        r, _ = _offsets(r, 0.0)
+        x = r / self.r_s
+        with np.errstate(divide="ignore", invalid="ignore"):
+            return 4 * self.kappa_s * self._h(x) / x**2
+
+    def _convergence(self, x, y):
+        xi = np.sqrt(x * x + y * y) / self.r_s
+        w = (1 - xi) / (1 + xi)
+        # (1 - F) / (x^2 - 1) = (1 + w)^2 / 4 * sum_{k>=1} c_k w^(k-1), c_k = 4k / (4k^2 - 1).
+        series = np.zeros_like(w)
+        for k in range(_SERIES_TERMS, 0, -1):
+            series = series * w + 4.0 * k / (4.0 * k * k - 1)
+        near_one = (1 + w) ** 2 / 4 * series
+        general = (1 - 2 * _g(w) / (1 + xi)) / (xi * xi - 1)
+        return 2 * self.kappa_s * np.where(np.abs(w) < _SERIES_LIMIT, near_one, general)
 
 
 class ExternalShear(_Profile):
-    """External shear, potential (gamma/2) r^2 cos 2(phi - phi_gamma) (Keeton 2001).
+    """External shear with potential (gamma/2) r^2 cos 2(phi - phi_gamma)
+    (Keeton 2001, arXiv:astro-ph/0102341).
 
     Parameters
     ----------
     gamma : float
         Shear strength for D_ls/D_s = 1.
     pa : `~astropy.units.Quantity`
-        Position angle (North through East) of the principal axis x' of the
-        potential (gamma/2)(x'^2 - y'^2): images are compressed along it and
-        stretched across it.
+        Position angle (North through East) of the axis x' of the potential
+        (gamma/2)(x'^2 - y'^2): images are compressed along it and stretched
+        across it.
     center : `~astropy.coordinates.SkyCoord`
-        Origin of the (otherwise translation-free) deflection field.
+        Origin of the deflection field alpha = Gamma theta.
     """
 
     def __init__(self, gamma, pa, center):
-        self.center = SkyCoord(center).icrs
-        self.gamma = float(gamma)
-        self.pa = _angle(pa)
+        self.center = _center(center)
+        self.gamma = _number(gamma, "gamma")
+        self.pa = _position_angle(pa)
 
-    def deflection(self, dx, dy):
-        x, y = self._rotate_in(dx, dy, self.pa)
-        return self._rotate_out(self.gamma * x, -self.gamma * y, self.pa)
+    def _deflection(self, x, y):
+        along, across = self._to_axes(x, y, self.pa)
+        return self._from_axes(self.gamma * along, -self.gamma * across, self.pa)
 
-    def convergence(self, dx, dy):
-        return np.zeros(np.broadcast(dx, dy).shape)
+    def _convergence(self, x, y):
+        return np.zeros(np.broadcast(x, y).shape)
 
 
-class CompositeLens:
-    """Sum of profiles, evaluated on plane coordinates of one WCS."""
+class CompositeLens(_Profile):
+    """Sum of profiles.
 
-    def __init__(self, profiles):
-        self.profiles = list(profiles)
+    Evaluated on offsets from ``center`` (default: the first member's
+    centre); the members' centres are placed with the gnomonic projection
+    about it. Rendering onto a map (`deflection_maps` and friends) places
+    every member in the map's own plane instead.
+
+    Parameters
+    ----------
+    profiles : iterable of profiles (composites allowed)
+    center : `~astropy.coordinates.SkyCoord`, optional
+    """
+
+    def __init__(self, profiles, center=None):
+        self.profiles = _flatten(list(profiles))
+        if not self.profiles:
+            raise LensviewInputError("A CompositeLens needs at least one profile.")
+        self.center = self.profiles[0].center if center is None else _center(center)
+        from .geometry import TangentPlane
+
+        plane = TangentPlane(self.center)
+        self._shifts = [tuple(float(v.to_value(u.arcsec)) for v in plane.to_plane(p.center))
+                        for p in self.profiles]
 
     def __iter__(self):
         return iter(self.profiles)
 
+    def __len__(self):
+        return len(self.profiles)
+
+    def _deflection(self, x, y):
+        ax, ay = 0.0, 0.0
+        for profile, (cx, cy) in zip(self.profiles, self._shifts):
+            bx, by = profile._deflection(x - cx, y - cy)
+            ax, ay = ax + bx, ay + by
+        return ax, ay
+
+    def _convergence(self, x, y):
+        return sum(p._convergence(x - cx, y - cy)
+                   for p, (cx, cy) in zip(self.profiles, self._shifts))
+
 
 def _flatten(profiles):
+    if isinstance(profiles, _Profile) and not isinstance(profiles, CompositeLens):
+        return [profiles]
     out = []
-    for item in (profiles if isinstance(profiles, (list, tuple, CompositeLens)) else [profiles]):
-        out.extend(_flatten(item.profiles) if isinstance(item, CompositeLens) else [item])
+    for item in (profiles.profiles if isinstance(profiles, CompositeLens) else profiles):
+        if isinstance(item, CompositeLens):
+            out.extend(item.profiles)
+        elif isinstance(item, _Profile):
+            out.append(item)
+        else:
+            raise LensviewInputError(
+                f"Expected lens profiles from lensview.analytic; got {type(item).__name__}.")
     return out
 
 
-# ---------------------------------------------------------------------------- grids
+# ---------------------------------------------------------------------- grids
 def make_wcs(center, shape, pixel_scale, rotation=0 * u.deg, flip_east=True):
-    """A TAN WCS centred on ``center``.
+    """A TAN WCS with a CD matrix, centred on a sky position.
 
     Parameters
     ----------
     center : `~astropy.coordinates.SkyCoord`
+        Sky position of the middle of the grid (the reference point).
     shape : tuple of int
         (ny, nx).
     pixel_scale : `~astropy.units.Quantity`
-        Angle per pixel.
+        Angle per pixel, the same along both axes.
     rotation : `~astropy.units.Quantity`
         Position angle of the +y pixel axis, North through East.
     flip_east : bool
-        True for the usual orientation with East to the left (+x West).
+        True for the usual orientation with East to the left of North
+        (det CD < 0, +x towards West at rotation 0); False for a mirrored grid.
+
+    Returns
+    -------
+    `~astropy.wcs.WCS`
     """
-    center = SkyCoord(center).icrs
-    ny, nx = shape
-    scale = u.Quantity(pixel_scale, u.deg).value
-    th = _angle(rotation)
+    center = _center(center)
+    ny, nx = _shape(shape)
+    scale = _arcsec(pixel_scale, "pixel_scale", positive=True) / 3600.0
+    th = _position_angle(rotation, "rotation")
     sign = -1.0 if flip_east else 1.0
     wcs = WCS(naxis=2)
     wcs.wcs.ctype = ["RA---TAN", "DEC--TAN"]
+    wcs.wcs.radesys = "ICRS"
     wcs.wcs.crval = [center.ra.deg, center.dec.deg]
     wcs.wcs.crpix = [(nx + 1) / 2, (ny + 1) / 2]
+    # Columns: the +x and +y pixel axes as (East, North) steps in degrees.
     wcs.wcs.cd = scale * np.array([[sign * np.cos(th), np.sin(th)],
                                    [-sign * np.sin(th), np.cos(th)]])
     wcs.wcs.set()
     return wcs
 
 
-def _matrix(wcs):
-    return wcs.celestial.pixel_scale_matrix * 3600.0  # arcsec per pixel
+def _shape(shape):
+    try:
+        ny, nx = (int(v) for v in shape)
+    except (TypeError, ValueError) as error:
+        raise LensviewInputError(f"shape must be (ny, nx); got {shape!r}.") from error
+    if ny < 1 or nx < 1:
+        raise LensviewInputError(f"shape must be two positive sizes (ny, nx); got {shape!r}.")
+    return ny, nx
 
 
-def _origin(wcs):
-    return np.asarray(wcs.celestial.wcs.crpix, float) - 1.0
+def _tan_wcs(wcs):
+    """The celestial part of a WCS whose pixels map affinely onto its plane."""
+    if not isinstance(wcs, WCS) or not wcs.has_celestial:
+        raise LensviewInputError("Analytic maps need a celestial astropy WCS (RA---TAN, DEC--TAN).")
+    cel = wcs.celestial
+    if [c[-3:] for c in cel.wcs.ctype] != ["TAN", "TAN"] or cel.sip is not None \
+            or cel.cpdis1 is not None or cel.cpdis2 is not None or cel.det2im1 is not None \
+            or cel.det2im2 is not None:
+        raise LensviewInputError(
+            f"Analytic profiles are rendered on undistorted TAN grids only (got "
+            f"{list(cel.wcs.ctype)}); use make_wcs or a RA---TAN/DEC--TAN WCS without SIP or "
+            "lookup-table distortions.")
+    if not np.isclose(cel.wcs.lonpole, 180.0):
+        raise LensviewInputError(
+            f"LONPOLE = {cel.wcs.lonpole} turns the TAN plane away from East/North; use the "
+            "default 180 degrees.")
+    if cel.wcs.lng != 0:
+        raise LensviewInputError("The WCS has latitude before longitude; give RA first, then Dec.")
+    return cel
 
 
-def plane_coordinates(wcs, shape):
-    """Plane coordinates (x East, y North, arcsec) of every pixel."""
-    ny, nx = shape
-    py, px = np.mgrid[0:ny, 0:nx].astype(float)
-    return _pixels_to_plane(wcs, px, py)
+def _matrix(cel):
+    """Pixel-to-plane matrix in arcsec per pixel (rows East, North; columns x, y)."""
+    return cel.pixel_scale_matrix * 3600.0
 
 
-def _pixels_to_plane(wcs, px, py):
-    m = _matrix(wcs)
-    ox, oy = _origin(wcs)
-    dx, dy = px - ox, py - oy
+def _pixels_to_plane(cel, px, py):
+    m = _matrix(cel)
+    dx, dy = px - (cel.wcs.crpix[0] - 1.0), py - (cel.wcs.crpix[1] - 1.0)
     return m[0, 0] * dx + m[0, 1] * dy, m[1, 0] * dx + m[1, 1] * dy
 
 
+def plane_coordinates(wcs, shape):
+    """Plane coordinates of every pixel of a grid.
+
+    Parameters
+    ----------
+    wcs : `~astropy.wcs.WCS`
+        TAN WCS of the grid.
+    shape : tuple of int
+        (ny, nx).
+
+    Returns
+    -------
+    x, y : ndarray
+        (ny, nx) arrays, arcsec East and North of the reference point.
+    """
+    cel = _tan_wcs(wcs)
+    ny, nx = _shape(shape)
+    py, px = np.mgrid[0:ny, 0:nx].astype(float)
+    return _pixels_to_plane(cel, px, py)
+
+
 def sky_to_plane(wcs, coords):
-    """Plane coordinates (arcsec) of sky positions on a map's WCS."""
-    px, py = wcs.celestial.world_to_pixel(coords)
-    return _pixels_to_plane(wcs, np.asarray(px, float), np.asarray(py, float))
+    """Plane coordinates of sky positions on a map's WCS.
+
+    Parameters
+    ----------
+    wcs : `~astropy.wcs.WCS`
+    coords : `~astropy.coordinates.SkyCoord`
+
+    Returns
+    -------
+    x, y : ndarray
+        Arcsec East and North of the reference point.
+    """
+    cel = _tan_wcs(wcs)
+    px, py = cel.world_to_pixel(coords)
+    return _pixels_to_plane(cel, np.asarray(px, float), np.asarray(py, float))
 
 
 def plane_to_sky(wcs, x, y):
-    """Sky positions of plane coordinates (arcsec) of a map's WCS."""
-    m = np.linalg.inv(_matrix(wcs))
-    ox, oy = _origin(wcs)
-    x, y = np.asarray(x, float), np.asarray(y, float)
-    px = m[0, 0] * x + m[0, 1] * y + ox
-    py = m[1, 0] * x + m[1, 1] * y + oy
-    return wcs.celestial.pixel_to_world(px, py).icrs
+    """Sky positions of plane coordinates on a map's WCS.
+
+    Parameters
+    ----------
+    wcs : `~astropy.wcs.WCS`
+    x, y : array_like or `~astropy.units.Quantity`
+        East and North of the reference point (plain numbers in arcsec).
+
+    Returns
+    -------
+    `~astropy.coordinates.SkyCoord`
+        ICRS positions.
+    """
+    cel = _tan_wcs(wcs)
+    x, y = _offsets(x, y)
+    inverse = np.linalg.inv(_matrix(cel))
+    px = inverse[0, 0] * x + inverse[0, 1] * y + cel.wcs.crpix[0] - 1.0
+    py = inverse[1, 0] * x + inverse[1, 1] * y + cel.wcs.crpix[1] - 1.0
+    return cel.pixel_to_world(px, py).icrs
 
 
-def _plane_deflection(profiles, wcs, shape):
-    x, y = plane_coordinates(wcs, shape)
-    ax = np.zeros(shape)
-    ay = np.zeros(shape)
-    for profile in _flatten(profiles):
-        cx, cy = sky_to_plane(wcs, profile.center)
-        with np.errstate(divide="ignore", invalid="ignore"):
-            bx, by = profile.deflection(x - cx, y - cy)
-        ax += bx
-        ay += by
-    return ax, ay
+def _on_grid(profiles, wcs, shape, evaluate, n_out):
+    """Sum ``evaluate(profile, dx, dy)`` over profiles at every pixel, in row blocks."""
+    members = _flatten(profiles)
+    cel = _tan_wcs(wcs)
+    ny, nx = _shape(shape)
+    centres = [sky_to_plane(cel, p.center) for p in members]
+    out = [np.zeros((ny, nx)) for _ in range(n_out)]
+    rows = max(1, _BLOCK_PIXELS // nx)
+    for start in range(0, ny, rows):
+        py, px = np.mgrid[start:min(ny, start + rows), 0:nx].astype(float)
+        x, y = _pixels_to_plane(cel, px, py)
+        for profile, (cx, cy) in zip(members, centres):
+            for total, part in zip(out, evaluate(profile, x - cx, y - cy)):
+                total[start:start + rows] += part
+    return out
 
 
 def deflection_maps(profiles, wcs, shape, *, dtype=np.float64):
-    """Deflection maps in the file convention: components along the map's +x
-    and +y pixel axes, in arcsec.
+    """Deflection maps in the file convention of lensview.
+
+    The components are those along the map's own +x and +y pixel axes, in
+    arcsec: the plane (East, North) deflection is turned into pixels with the
+    inverse of the pixel scale matrix, and each pixel component is multiplied
+    by that axis' pixel scale |CD[:, i]| in arcsec. This holds for rotated
+    and mirrored grids alike.
 
     Parameters
     ----------
     profiles : profile, list of profiles or `CompositeLens`
+        Normalised to D_ls/D_s = 1.
     wcs : `~astropy.wcs.WCS`
         TAN WCS of the map.
     shape : tuple of int
         (ny, nx).
     dtype : numpy dtype
-        Output type (float32 for files like published ones).
+        Output type (float32 for files like most published ones).
 
     Returns
     -------
     alpha_x, alpha_y : ndarray
     """
-    east, north = _plane_deflection(profiles, wcs, shape)
-    m = _matrix(wcs)
+    east, north = _on_grid(profiles, wcs, shape, lambda p, x, y: p.deflection(x, y), 2)
+    m = _matrix(_tan_wcs(wcs))
     inverse = np.linalg.inv(m)
-    # Plane (East, North) -> pixels along +x, +y, then arcsec along each axis.
-    px = inverse[0, 0] * east + inverse[0, 1] * north
-    py = inverse[1, 0] * east + inverse[1, 1] * north
+    along_x = inverse[0, 0] * east + inverse[0, 1] * north
+    along_y = inverse[1, 0] * east + inverse[1, 1] * north
     scales = np.sqrt((m**2).sum(axis=0))
-    return (px * scales[0]).astype(dtype), (py * scales[1]).astype(dtype)
+    return (along_x * scales[0]).astype(dtype), (along_y * scales[1]).astype(dtype)
 
 
 def convergence_map(profiles, wcs, shape):
-    """Exact convergence (for D_ls/D_s = 1) at every pixel."""
-    x, y = plane_coordinates(wcs, shape)
-    kappa = np.zeros(shape)
-    for profile in _flatten(profiles):
-        cx, cy = sky_to_plane(wcs, profile.center)
-        with np.errstate(divide="ignore", invalid="ignore"):
-            kappa += profile.convergence(x - cx, y - cy)
+    """Exact convergence at every pixel, for D_ls/D_s = 1.
+
+    Parameters
+    ----------
+    profiles : profile, list of profiles or `CompositeLens`
+    wcs : `~astropy.wcs.WCS`
+    shape : tuple of int
+        (ny, nx).
+
+    Returns
+    -------
+    ndarray
+    """
+    (kappa,) = _on_grid(profiles, wcs, shape, lambda p, x, y: (p.convergence(x, y),), 1)
     return kappa
 
 
 def magnification_map(profiles, wcs, shape, scaling=1.0):
-    """Exact signed magnification 1/det(I - f a) at every pixel."""
-    x, y = plane_coordinates(wcs, shape)
-    total = [np.zeros(shape) for _ in range(4)]
-    for profile in _flatten(profiles):
-        cx, cy = sky_to_plane(wcs, profile.center)
-        with np.errstate(divide="ignore", invalid="ignore"):
-            for k, term in enumerate(profile.jacobian(x - cx, y - cy)):
-                total[k] += term
-    a11, a12, a21, a22 = (scaling * t for t in total)
+    """Exact signed magnification 1 / det(I - f a) at every pixel.
+
+    Parameters
+    ----------
+    profiles : profile, list of profiles or `CompositeLens`
+    wcs : `~astropy.wcs.WCS`
+    shape : tuple of int
+        (ny, nx).
+    scaling : float
+        f = D_ls/D_s of the source (1 for the map normalisation).
+
+    Returns
+    -------
+    ndarray
+        Negative where the image parity is odd.
+    """
+    a11, a12, a21, a22 = _on_grid(profiles, wcs, shape, lambda p, x, y: p.jacobian(x, y), 4)
+    f = _number(scaling, "scaling", low=0.0)
     with np.errstate(divide="ignore", invalid="ignore"):
-        return 1.0 / ((1 - a11) * (1 - a22) - a12 * a21)
+        return 1.0 / ((1 - f * a11) * (1 - f * a22) - f * f * a12 * a21)

@@ -50,7 +50,8 @@ class TangentPlane:
                 "SkyCoord(ra, dec) for one position.")
         self.center = center.icrs
         ra0, dec0 = self.center.ra.rad, self.center.dec.rad
-        self._axis = np.array([np.cos(dec0) * np.cos(ra0), np.cos(dec0) * np.sin(ra0), np.sin(dec0)])
+        self._axis = np.array([np.cos(dec0) * np.cos(ra0), np.cos(dec0) * np.sin(ra0),
+                               np.sin(dec0)])
         self._east = np.array([-np.sin(ra0), np.cos(ra0), 0.0])
         self._north = np.array([-np.sin(dec0) * np.cos(ra0), -np.sin(dec0) * np.sin(ra0),
                                 np.cos(dec0)])
@@ -383,7 +384,8 @@ def point_in_polygon(points, polygon):
     polygon = np.asarray(polygon, dtype=float).reshape(-1, 2)
     x1, y1 = polygon.T
     x2, y2 = np.roll(polygon, -1, axis=0).T
-    usable = np.isfinite(polygon).all(axis=1) & np.isfinite(np.roll(polygon, -1, axis=0)).all(axis=1)
+    finite = np.isfinite(polygon).all(axis=1)
+    usable = finite & np.roll(finite, -1)
     x1, y1, x2, y2 = x1[usable], y1[usable], x2[usable], y2[usable]
     order = np.argsort(points[:, 1], kind="stable")
     ys = points[order, 1]

@@ -55,7 +55,8 @@ def test_tangent_plane_matches_astropy_offset_frame():
     # x = tan l, y = tan b / cos l (Calabretta & Greisen 2002; astropy SkyOffsetFrame).
     lon, lat = lon.to_value(u.rad), lat.to_value(u.rad)
     arcsec = np.degrees(1) * 3600
-    np.testing.assert_allclose(x.to_value(u.arcsec), np.tan(lon) * arcsec, rtol=0, atol=MICRO_ARCSEC)
+    np.testing.assert_allclose(x.to_value(u.arcsec), np.tan(lon) * arcsec,
+                               rtol=0, atol=MICRO_ARCSEC)
     np.testing.assert_allclose(y.to_value(u.arcsec), np.tan(lat) / np.cos(lon) * arcsec,
                                rtol=0, atol=MICRO_ARCSEC)
 
@@ -120,7 +121,8 @@ def test_square_distances_end_caps_and_sides():
     result = nearest_on_polylines(pts, [square], [True])
     # Elementary geometry: perpendicular feet on edges, corners as end caps.
     np.testing.assert_allclose(result.distance, [3, 5, 1, 0.5, np.sqrt(2), 0], atol=1e-12)
-    np.testing.assert_allclose(result.foot_xy[:5], [[2, 0], [4, 4], [1, 0], [2, 4], [0, 0]], atol=1e-12)
+    np.testing.assert_allclose(result.foot_xy[:5], [[2, 0], [4, 4], [1, 0], [2, 4], [0, 0]],
+                               atol=1e-12)
     assert list(result.side) == [-1, -1, 1, 1, -1, 0]
     assert result.segment_index[0] == 0 and result.t[0] == pytest.approx(0.5)
     assert result.segment_index[3] == 2 and result.t[3] == pytest.approx(0.5)  # (4,4) -> (0,4)
@@ -140,7 +142,8 @@ def test_exact_against_brute_force_on_random_data():
     # Very uneven segments: long straight runs next to dense wiggles, so the
     # search has to split the long ones.
     lines.append(np.array([[-40.0, -25.0], [40.0, -25.0], [40.0, 30.0]]))
-    lines.append(np.column_stack([np.linspace(-5, 5, 3000), 0.3 * np.sin(np.linspace(0, 60, 3000))]))
+    wiggle = np.linspace(0, 60, 3000)
+    lines.append(np.column_stack([np.linspace(-5, 5, 3000), 0.3 * np.sin(wiggle)]))
     closed = [True, False, True, False, True, False, False, False]
     pts = np.vstack([rng.uniform(-60, 60, (400, 2)), rng.normal(0, 1, (200, 2))])
     result = nearest_on_polylines(pts, lines, closed)
@@ -166,7 +169,7 @@ def test_many_lines_through_one_vertex():
     spokes = [np.array([[0.0, 0.0], [np.cos(a), np.sin(a)]]) for a in angles]
     pts = np.array([[0.05, -0.2], [0.3, 0.31], [-2.0, -0.5]])
     result = nearest_on_polylines(pts, spokes, [False] * len(spokes))
-    expected, which = brute_force(pts, spokes, [False] * len(spokes))
+    expected, _ = brute_force(pts, spokes, [False] * len(spokes))
     # Forty segments share a vertex, more than one tree query returns at once.
     np.testing.assert_allclose(result.distance, expected, atol=1e-12)
 
@@ -192,7 +195,8 @@ def test_length_and_area_of_regular_polygon():
     t = 2 * np.pi * np.arange(n) / n
     polygon = np.column_stack([100 + radius * np.cos(t), -50 + radius * np.sin(t)])
     # Regular n-gon: perimeter 2 n R sin(pi/n), area (n/2) R^2 sin(2 pi/n) (elementary geometry).
-    assert polyline_length(polygon, closed=True) == pytest.approx(2 * n * radius * np.sin(np.pi / n))
+    perimeter = 2 * n * radius * np.sin(np.pi / n)
+    assert polyline_length(polygon, closed=True) == pytest.approx(perimeter)
     open_length = (n - 1) * 2 * radius * np.sin(np.pi / n)
     assert polyline_length(polygon, closed=False) == pytest.approx(open_length)
     assert polygon_area(polygon) == pytest.approx(0.5 * n * radius**2 * np.sin(2 * np.pi / n),
