@@ -63,14 +63,14 @@ def main():
     with picture_column:
         viewport = sky_panel(state, scene, settings, z_source, results)
     with side_column:
-        marking_controls(state, scene)
+        marking_controls(state, scene, results.focus)
         knot_list(state)
 
     measurements, images, source, takeaway = st.tabs(TABS)
     with measurements:
         measurement_panel(results)
     with images:
-        images_panel(state, results)
+        images_panel(state, results, [f.name for f in scene.fields])
     with source:
         source_panel(state, scene, z_source, viewport, settings)
     with takeaway:

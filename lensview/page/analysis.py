@@ -34,7 +34,8 @@ class Results:
     counterimage_tables : list of `~astropy.table.Table`
         Counter-images per model, with each model's verdict in ``meta``.
     links : list of (i, j)
-        Knot pairs to draw (consensus pairs with several models).
+        Knot pairs to draw: those of ``pairs_shown`` (a model name or
+        "consensus", the default with several models).
     focus : str or None
         Label of the knot whose counter-images were predicted.
     errors : list of str
@@ -47,6 +48,7 @@ class Results:
     counterimages: object = None
     counterimage_tables: list = dataclass_field(default_factory=list)
     links: list = dataclass_field(default_factory=list)
+    pairs_shown: str = None
     focus: str = None
     errors: list = dataclass_field(default_factory=list)
 
@@ -98,7 +100,11 @@ def analyse(state, scene, z_source, *, psf_fwhm=None, tolerance=None):
             fwhm = psf_fwhm * u.arcsec if psf_fwhm else None
             results.pairs = pair_counterparts(coords, scene.fields, z_source, tolerance=tol,
                                               psf_fwhm=fwhm)
-            shown = "consensus" if len(scene.fields) > 1 else scene.fields[0].name
+            shown = state.get("lv_pairs_shown")
+            names = [f.name for f in scene.fields]
+            if shown not in names and shown != "consensus":
+                shown = "consensus" if len(names) > 1 else names[0]
+            results.pairs_shown = shown
             rows = results.pairs[np.asarray(results.pairs["model"]) == shown]
             results.links = [(int(i), int(j)) for i, j in zip(rows["i"], rows["j"])]
         except LensviewInputError as error:

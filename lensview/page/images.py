@@ -41,7 +41,7 @@ def pairing_settings(state):
     return (psf if psf > 0 else None), (tolerance if tolerance > 0 else None)
 
 
-def images_panel(state, results):
+def images_panel(state, results, models):
     labels = page_state.candidate_labels(state)
     left, middle, right = st.columns([1.4, 1, 1])
     if labels:
@@ -72,6 +72,13 @@ def images_panel(state, results):
     if not len(results.pairs):
         st.caption("No pair passes the gate: no two knots look like images of one source.")
         return
+    choices = (["consensus"] if len(models) > 1 else []) + list(models)
+    if state.get("lv_pairs_shown") not in choices:
+        state["lv_pairs_shown"] = results.pairs_shown or choices[0]
+    st.selectbox("Pairs drawn on the picture", choices, key="lv_pairs_shown",
+                 help="The consensus holds the pairs chosen by most models.")
+    if not results.links:
+        st.caption(f"No pair of {state['lv_pairs_shown']} to draw.")
     pairs = results.pairs.copy()
     pairs["knot_i"] = [labels[int(i)] for i in pairs["i"]]
     pairs["knot_j"] = [labels[int(j)] for j in pairs["j"]]

@@ -113,11 +113,9 @@ def _cached_refit(demo_checksums, index, z_lens, cosmology_key):
 
 def _demo_files():
     """Name -> path of the demo scenario's files, and their checksums."""
-    from .. import demo
+    from ..demo import DEMO_DIRECTORY
 
-    directory = Path(getattr(demo, "DEMO_DIRECTORY", Path(__file__).resolve().parents[2]
-                             / "sample_images"))
-    paths = sorted(p for p in directory.glob("*") if p.is_file() and p.name != "README.md")
+    paths = sorted(p for p in Path(DEMO_DIRECTORY).glob("*") if p.is_file() and p.suffix != ".md")
     files = {p.name: p for p in paths}
     checksums = tuple((p.name, _checksum(p.read_bytes())) for p in paths)
     return files, checksums
@@ -129,11 +127,12 @@ def _demo_checksums_once():
 
 
 def cosmology_key(choice, h0=70.0, om0=0.3):
-    return (PLANCK,) if choice == PLANCK else ("flat", float(h0), float(om0))
+    """A hashable record of the chosen cosmology (the cache key of the models)."""
+    return (PLANCK,) if choice == PLANCK else (FLAT, float(h0), float(om0))
 
 
 def cosmology_from_key(key):
-    return cosmology_from_choice(*key) if key[0] != PLANCK else cosmology_from_choice(PLANCK)
+    return cosmology_from_choice(*key)
 
 
 def cosmology_from_choice(choice, h0=70.0, om0=0.3):
@@ -172,9 +171,9 @@ def demo_scene(z_lens=None, cosmology_choice=(PLANCK,)):
                                         "pixel" if fld.units == "pixel" else "arcsec", fld.z_norm))
     from .. import demo
 
-    z_source = float(getattr(demo, "Z_SOURCE", 2.0))
+    z_source = float(demo.Z_SOURCE)
     key = "demo|" + "|".join(s for _, s in checksums) + f"|{z_lens}|{cosmology_choice}"
-    return Scene(key=key, title="Demo field (invented data)", cutout=cutout, fields=list(fields),
+    return Scene(key=key, title=f"{demo.CLUSTER_NAME} \u2014 invented demo field", cutout=cutout, fields=list(fields),
                  z_lens=z_lens, cosmology=fields[0].cosmology, cutout_file=cutout_file,
                  model_inputs=model_inputs, files=files, knots=knots, z_source=z_source)
 

@@ -169,8 +169,8 @@ def sky_panel(state, scene, settings, z_source, results):
     return viewport
 
 
-def marking_controls(state, scene):
-    """Label for the next click, snapping, and the demo's knots."""
+def marking_controls(state, scene, focus=None):
+    """Label for the next click, snapping, zoom on the selected knot, and the demo's knots."""
     st.markdown("**Next click**")
     st.text_input("Label (empty: next free K-number)", key="lv_next_label",
                   placeholder=page_state.next_label(state))
@@ -181,7 +181,6 @@ def marking_controls(state, scene):
     note = state.get(page_state.CLICK_NOTE)
     if note:
         st.caption(note)
-    focus = state.get("lv_focus")
     marks = page_state.candidates(state)
     labels = page_state.candidate_labels(state)
     if focus in labels:
