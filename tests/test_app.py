@@ -430,3 +430,64 @@ def test_bad_uploads_show_the_reason_and_keep_the_knots():
     run_page(app)
     assert any("does not cover any part of the cutout" in e.value for e in app.error)
     assert len(app.session_state[page_state.CANDIDATES]) == 1
+
+
+def test_cosmology_and_lens_redshift_reach_every_model():
+    from astropy.cosmology import FlatLambdaCDM
+
+    from lensview.page.inputs import FLAT
+
+    app = run_page()
+    scene = app.session_state["lv_scene"]
+    clicked = click_on(app, demo_knot(scene, 3), stamp=1)
+    planck_pc = shown_table(app)["offset (pc)"].astype(float)
+    app.radio(key="lv_cosmology").set_value(FLAT)
+    run_page(app)
+    app.number_input(key="lv_h0").set_value(60.0)
+    app.number_input(key="lv_om0").set_value(0.4)
+    app.number_input(key="lv_z_lens_demo").set_value(0.5)
+    run_page(app)
+    flat = app.session_state["lv_scene"]
+    cosmology = FlatLambdaCDM(H0=60.0, Om0=0.4, Tcmb0=0.0)
+    assert all(f.cosmology == cosmology and f.z_lens == 0.5 for f in flat.fields)
+    table = shown_table(app)
+    # The same maps rebuilt by the library with that cosmology and lens redshift.
+    import lensview as lv
+    from lensview.demo import load_demo
+
+    _, originals, _ = load_demo()
+    rebuilt = [lv.DeflectionField(*f.node_deflection(slice(None), slice(None)), f.wcs,
+                                  units="pixel", z_lens=0.5, z_norm=f.z_norm,
+                                  cosmology=cosmology, name=f.name) for f in originals]
+    expected = lv.measure_candidates(clicked, rebuilt, scene.z_source, cosmology=cosmology)
+    np.testing.assert_allclose(table["offset (pc)"].astype(float),
+                               np.asarray(expected["offset_pc"]), rtol=1e-3, atol=0.06)
+    assert np.all(np.abs(table["offset (pc)"].astype(float) - planck_pc) > 0.05)
+
+
+def test_zoomed_and_panned_view_maps_clicks_exactly_and_draws_contours():
+    app = run_page()
+    scene = app.session_state["lv_scene"]
+    knot = demo_knot(scene, 5)
+    x, y = scene.cutout.wcs.world_to_pixel(knot)
+    app.select_slider(key="lv_zoom").set_value(4)
+    app.number_input(key="lv_cx").set_value(float(x) + 20)
+    app.number_input(key="lv_cy").set_value(float(y) - 10)
+    app.checkbox(key="lv_show_contours").check()
+    run_page(app)
+    app.button(key="lv_pan_\u2192").click()
+    run_page(app)
+    viewport = app.session_state[page_state.VIEWPORT]
+    ny, nx = scene.cutout.data.shape
+    assert (viewport.nx, viewport.ny) == (math.ceil(nx / 4), math.ceil(ny / 4))
+    assert viewport.x0 > 0 and viewport.y0 > 0
+    clicked = click_on(app, knot, stamp=1)
+    # Rounding the click to a whole display pixel moves it by at most half a display pixel
+    # along each axis.
+    arcsec_per_display_pixel = (scene.cutout.wcs.proj_plane_pixel_scales()[0].to_value(u.arcsec)
+                                * viewport.nx / viewport.width)
+    assert clicked.separation(knot).to_value(u.arcsec) <= (
+        math.hypot(0.5, 0.5) * arcsec_per_display_pixel * (1 + 1e-6))
+    expected = expected_offsets(clicked, scene, scene.z_source)
+    np.testing.assert_allclose(shown_table(app)["offset (arcsec)"].astype(float),
+                               np.asarray(expected["offset_arcsec"]), atol=6e-5)

@@ -48,8 +48,10 @@ def main():
         state.setdefault("lv_z_source", float(scene.z_source))
     heading, slider = st.columns([1.3, 2])
     heading.markdown(f"#### {scene.title}")
-    heading.caption(f"z_lens = {scene.z_lens:g}, {len(scene.fields)} model(s): "
-                    + ", ".join(f.name for f in scene.fields) + f"; {scene.cosmology.name or 'custom cosmology'}")
+    models = ", ".join(f.name for f in scene.fields)
+    cosmology = scene.cosmology.name or "flat \u039bCDM"
+    heading.caption(f"z_lens = {scene.z_lens:g}, {len(scene.fields)} model(s): {models}; "
+                    f"{cosmology}")
     z_source = slider.slider("Source redshift", 0.05, 12.0, step=0.01, key="lv_z_source",
                              help="Curves, measurements and counter-images follow at once.")
 

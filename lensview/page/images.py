@@ -1,4 +1,4 @@
-"""Main panel "Counter-images and pairs": where else a knot should appear, and which knots mirror."""
+"""Main panel "Counter-images and pairs": where else a knot appears, and which knots mirror."""
 
 import numpy as np
 import streamlit as st

@@ -111,19 +111,15 @@ def _cached_refit(demo_checksums, index, z_lens, cosmology_key):
                            name=original.name)
 
 
+@st.cache_resource(show_spinner=False)
 def _demo_files():
-    """Name -> path of the demo scenario's files, and their checksums."""
+    """Name -> path of the demo scenario's files, and their checksums (read once per server)."""
     from ..demo import DEMO_DIRECTORY
 
     paths = sorted(p for p in Path(DEMO_DIRECTORY).glob("*") if p.is_file() and p.suffix != ".md")
     files = {p.name: p for p in paths}
     checksums = tuple((p.name, _checksum(p.read_bytes())) for p in paths)
     return files, checksums
-
-
-@st.cache_resource(show_spinner=False)
-def _demo_checksums_once():
-    return _demo_files()
 
 
 def cosmology_key(choice, h0=70.0, om0=0.3):
@@ -153,29 +149,28 @@ def cosmology_from_choice(choice, h0=70.0, om0=0.3):
 # ---------------------------------------------------------------------------- scenes
 def demo_scene(z_lens=None, cosmology_choice=(PLANCK,)):
     """The bundled demo field (invented data), optionally at another z_lens or cosmology."""
+    from .. import demo
     from ..export import InputFile, ModelInputs
 
-    files, checksums = _demo_checksums_once()
-    cutout, fields, knots = _cached_demo(checksums)
-    demo_z_lens = fields[0].z_lens
-    z_lens = demo_z_lens if z_lens is None else float(z_lens)
-    if z_lens != demo_z_lens or cosmology_choice != (PLANCK,):
-        fields = [_cached_refit(checksums, k, z_lens, cosmology_choice) for k in range(len(fields))]
-    cutout_name = Path(cutout.path).name if cutout.path else None
+    files, checksums = _demo_files()
+    cutout, originals, knots = _cached_demo(checksums)
+    z_lens = originals[0].z_lens if z_lens is None else float(z_lens)
+    fields = list(originals)
+    if z_lens != originals[0].z_lens or cosmology_choice != (PLANCK,):
+        fields = [_cached_refit(checksums, k, z_lens, cosmology_choice)
+                  for k in range(len(originals))]
     by_name = dict(checksums)
-    cutout_file = InputFile(cutout_name, by_name[cutout_name]) if cutout_name in by_name else None
-    model_inputs = []
-    for fld in fields:
-        names = [n for n in by_name if _demo_file_of_model(n, fld.name)]
-        model_inputs.append(ModelInputs(fld.name, tuple(InputFile(n, by_name[n]) for n in names),
-                                        "pixel" if fld.units == "pixel" else "arcsec", fld.z_norm))
-    from .. import demo
-
-    z_source = float(demo.Z_SOURCE)
+    cutout_name = Path(cutout.path).name
+    # The session records the files as they are on disk, with their own units and normalisation.
+    model_inputs = [ModelInputs(f.name, tuple(InputFile(n, by_name[n]) for n in by_name
+                                              if _demo_file_of_model(n, f.name)),
+                                f.units, f.z_norm) for f in originals]
     key = "demo|" + "|".join(s for _, s in checksums) + f"|{z_lens}|{cosmology_choice}"
-    return Scene(key=key, title=f"{demo.CLUSTER_NAME} \u2014 invented demo field", cutout=cutout, fields=list(fields),
-                 z_lens=z_lens, cosmology=fields[0].cosmology, cutout_file=cutout_file,
-                 model_inputs=model_inputs, files=files, knots=knots, z_source=z_source)
+    return Scene(key=key, title=f"{demo.CLUSTER_NAME} \u2014 invented demo field",
+                 cutout=cutout, fields=fields, z_lens=z_lens, cosmology=fields[0].cosmology,
+                 cutout_file=InputFile(cutout_name, by_name[cutout_name]),
+                 model_inputs=model_inputs, files=files, knots=knots,
+                 z_source=float(demo.Z_SOURCE))
 
 
 def _demo_file_of_model(file_name, model_name):
@@ -230,7 +225,8 @@ def files_scene(state, cutout_upload, model_specs, z_lens, cosmology_choice):
                 f"Model {k + 1} has {len(uploads)} files; give one file or two (x then y).")
         name = spec["name"].strip() or f"model {k + 1}"
         if name in names_seen:
-            raise LensviewInputError(f"Two models are named {name!r}; give each model its own name.")
+            raise LensviewInputError(
+                f"Two models are named {name!r}; give each model its own name.")
         names_seen.add(name)
         pairs = [_upload_content(state, up) for up in uploads]
         contents = tuple(c for c, _ in pairs)

@@ -72,11 +72,13 @@ def render_base_layer(data, viewport, *, stretch, limits, cmap, curves=(), model
     ax = fig.add_axes((0, 0, 1, 1))
     ax.set_axis_off()
     left, right, bottom, top = viewport.extent
-    ax.imshow(crop, origin="lower", extent=viewport.extent, cmap=colormaps[cmap].with_extremes(bad="#BFBFBF"), norm=norm,
-              interpolation="nearest", resample=False)
+    ax.imshow(crop, origin="lower", extent=viewport.extent, norm=norm,
+              cmap=colormaps[cmap].with_extremes(bad="#BFBFBF"), interpolation="nearest",
+              resample=False)
     colours = model_colours(model_names)
     if contours is not None and len(contour_levels):
-        yy, xx = np.mgrid[viewport.y0:viewport.y0 + viewport.ny, viewport.x0:viewport.x0 + viewport.nx]
+        rows, cols = viewport.slices
+        yy, xx = np.mgrid[rows, cols]
         finite = np.where(np.isfinite(contours), contours, 0.0)
         ax.contour(xx, yy, finite, levels=sorted(contour_levels), colors="#7F7F7F",
                    linewidths=0.8, linestyles=":")

@@ -3,6 +3,7 @@
 import astropy.units as u
 import numpy as np
 import streamlit as st
+from astropy.coordinates import SkyCoord
 from streamlit_image_coordinates import streamlit_image_coordinates
 
 from ..errors import LensviewInputError
@@ -41,9 +42,9 @@ def display_settings(model_names=()):
     if show_contours and len(model_names) > 1:
         chosen = sidebar.selectbox("Contours of model", list(model_names), key="lv_contour_model")
         contour_model = list(model_names).index(chosen)
-    return dict(contour_model=contour_model, stretch=stretch, limits=LIMIT_CHOICES[limits_name], limits_name=limits_name,
-                cmap=cmap, width=int(width), show_curves=show_curves,
-                show_contours=show_contours)
+    return dict(stretch=stretch, limits=LIMIT_CHOICES[limits_name], cmap=cmap, width=int(width),
+                show_curves=show_curves, show_contours=show_contours,
+                contour_model=contour_model)
 
 
 def snap_radius(state):
@@ -117,7 +118,8 @@ def _base_layer(scene_key, viewport, stretch, limits, cmap, z_source, show_curve
     if show_contours:
         # |mu| of the chosen model on the shown crop, from the library's det A resampling.
         crop_wcs = _scene.cutout.wcs[viewport.slices]
-        mu = _scene.fields[contour_model].magnification_map_on(crop_wcs, (viewport.ny, viewport.nx), z_source)
+        mu = _scene.fields[contour_model].magnification_map_on(
+            crop_wcs, (viewport.ny, viewport.nx), z_source)
         contours = np.abs(mu)
     drawn = []
     if show_curves:
@@ -126,7 +128,8 @@ def _base_layer(scene_key, viewport, stretch, limits, cmap, z_source, show_curve
                           curve.closed))
     return render_base_layer(_scene.cutout.data, viewport, stretch=stretch, limits=limits,
                              cmap=cmap, curves=drawn, model_names=[f.name for f in _scene.fields],
-                             contours=contours, contour_levels=CONTOUR_LEVELS if show_contours else ())
+                             contours=contours,
+                             contour_levels=CONTOUR_LEVELS if show_contours else ())
 
 
 def sky_panel(state, scene, settings, z_source, results):
@@ -147,13 +150,12 @@ def sky_panel(state, scene, settings, z_source, results):
     knots = []
     if marks:
         x, y = wcs.world_to_pixel(page_state.candidate_coords(state))
-        knots = [(m["label"], xi, yi) for m, xi, yi in zip(marks, np.atleast_1d(x), np.atleast_1d(y))]
+        knots = [(m["label"], xi, yi)
+                 for m, xi, yi in zip(marks, np.atleast_1d(x), np.atleast_1d(y))]
     links = [((knots[i][1], knots[i][2]), (knots[j][1], knots[j][2])) for i, j in results.links]
     images = []
     if results.counterimages is not None and len(results.counterimages):
         others = results.counterimages[~results.counterimages["is_input"]]
-        from astropy.coordinates import SkyCoord
-
         if len(others):
             cx, cy = wcs.world_to_pixel(SkyCoord(others["ra"], others["dec"], frame="icrs"))
             images = list(zip(np.atleast_1d(cx), np.atleast_1d(cy)))
@@ -164,8 +166,9 @@ def sky_panel(state, scene, settings, z_source, results):
                                 png_compression_level=1, cursor="crosshair")
     st.caption(
         f"Showing cutout pixels x {viewport.x0}\u2013{viewport.x0 + viewport.nx - 1}, "
-        f"y {viewport.y0}\u2013{viewport.y0 + viewport.ny - 1}. Click on a knot to mark it. Circles: marked knots; squares: predicted "
-        "counter-images of the selected knot; white lines: proposed mirrored pairs.")
+        f"y {viewport.y0}\u2013{viewport.y0 + viewport.ny - 1}. Click on a knot to mark it. "
+        "Circles: marked knots; squares: predicted counter-images of the selected knot; white "
+        "lines: proposed mirrored pairs.")
     return viewport
 
 
@@ -185,8 +188,6 @@ def marking_controls(state, scene, focus=None):
     labels = page_state.candidate_labels(state)
     if focus in labels:
         mark = marks[labels.index(focus)]
-        from astropy.coordinates import SkyCoord
-
         st.button(f"Zoom in on {focus}", key="lv_centre_focus", on_click=centre_on,
                   args=(state, SkyCoord(mark["ra"] * u.deg, mark["dec"] * u.deg), scene.cutout, 4))
     if scene.knots is not None and len(scene.knots):
