@@ -344,10 +344,19 @@ def test_session_and_catalogue_come_back():
     scene = app.session_state["lv_scene"]
     for k in range(2):
         click_on(app, demo_knot(scene, k), stamp=k + 1)
+    app.selectbox(key="lv_stretch").set_value("sqrt")
+    app.selectbox(key="lv_limits").set_value("min to max")
+    app.selectbox(key="lv_cmap").set_value("magma")
+    app.slider(key="lv_z_source").set_value(3.3)
+    run_page(app)
     saved = app.session_state[page_state.CANDIDATES]
     session = next(p for name, p in app.session_state[DOWNLOADS].items()
                    if name.endswith(".json"))()
     app.button(key="lv_clear_knots").click()
+    app.selectbox(key="lv_stretch").set_value("linear")
+    app.selectbox(key="lv_limits").set_value("zscale")
+    app.selectbox(key="lv_cmap").set_value("gray")
+    app.slider(key="lv_z_source").set_value(2.0)
     run_page(app)
     assert app.session_state[page_state.CANDIDATES] == []
     app.file_uploader(key="lv_up_session").set_value(("mine.json", session, "application/json"))
@@ -357,6 +366,9 @@ def test_session_and_catalogue_come_back():
     restored = app.session_state[page_state.CANDIDATES]
     assert [m["label"] for m in restored] == [m["label"] for m in saved]
     np.testing.assert_allclose([m["ra"] for m in restored], [m["ra"] for m in saved], atol=1e-12)
+    assert (app.selectbox(key="lv_stretch").value, app.selectbox(key="lv_limits").value,
+            app.selectbox(key="lv_cmap").value) == ("sqrt", "min to max", "magma")
+    assert app.slider(key="lv_z_source").value == pytest.approx(3.3)
     # A session saved with another cutout says which file differs and changes nothing.
     import json
 

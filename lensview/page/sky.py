@@ -16,7 +16,7 @@ __all__ = ["display_settings", "process_click", "sky_panel", "STRETCH_CHOICES", 
 
 STRETCH_CHOICES = ("asinh", "sqrt", "log", "linear")
 LIMIT_CHOICES = {"zscale": "zscale", "99.5 %": 99.5, "99 %": 99.0, "98 %": 98.0, "95 %": 95.0,
-                 "90 %": 90.0, "min to max": "minmax"}
+                 "90 %": 90.0, "min to max": 100.0}
 COLOUR_MAPS = ("gray_r", "gray", "magma", "cividis", "viridis", "inferno", "bone")
 ZOOMS = (1, 1.5, 2, 3, 4, 6, 8, 12, 16)
 WIDTHS = (560, 720, 880, 1040)

@@ -52,12 +52,11 @@ def session_document(knots, scene, z_source, settings):
     """The session file's JSON text for the inputs, settings and knots (a `knot_table`)."""
     from ..export import save_session
 
-    limits = settings["limits"]
     record = {
         "z_lens": scene.z_lens, "z_source": float(z_source), "cutout": scene.cutout_file,
         "models": list(scene.model_inputs), "cosmology": scene.cosmology,
         "display": {"stretch": settings["stretch"], "colormap": settings["cmap"],
-                    "limits": limits if limits != "minmax" else 100.0},
+                    "limits": settings["limits"]},
         "candidates": knots,
     }
     return save_session(None, record)
