@@ -391,6 +391,11 @@ def test_session_and_catalogue_come_back():
     assert [m["label"] for m in app.session_state[page_state.CANDIDATES]] == ["cat0", "cat1"]
 
 
+def uploader(app, slot):
+    """The current uploader of a slot ("cutout", "model_0"); its key changes after each upload."""
+    return next(w for w in app.file_uploader if w.key.startswith(f"lv_up_{slot}_"))
+
+
 def fits_bytes(data, wcs=None, extra=()):
     import io as _io
 
@@ -407,8 +412,8 @@ def test_bad_uploads_show_the_reason_and_keep_the_knots():
     click_on(app, demo_knot(scene, 0), stamp=1)
     app.radio(key="lv_source").set_value("My files")
     run_page(app)
-    cutout = app.file_uploader(key="lv_up_cutout")
-    cutout.set_value(("notes.fits", b"this is not a FITS file at all", "application/fits"))
+    uploader(app, "cutout").set_value(
+        ("notes.fits", b"this is not a FITS file at all", "application/fits"))
     run_page(app)
     assert any("not a readable FITS file" in e.value for e in app.error)
     assert len(app.session_state[page_state.CANDIDATES]) == 1
@@ -416,16 +421,15 @@ def test_bad_uploads_show_the_reason_and_keep_the_knots():
     assert app.session_state["lv_scene"].key == scene.key
 
     image = np.ones((40, 40), np.float32)
-    app.file_uploader(key="lv_up_cutout").set_value(
-        ("plain.fits", fits_bytes(image), "application/fits"))
+    uploader(app, "cutout").set_value(("plain.fits", fits_bytes(image), "application/fits"))
     run_page(app)
     assert any("WCS" in e.value for e in app.error)
 
     # A valid cutout with a model whose two maps differ in shape.
     wcs = small_wcs((40, 40))
-    app.file_uploader(key="lv_up_cutout").set_value(
-        ("cutout.fits", fits_bytes(image, wcs), "application/fits"))
-    app.file_uploader(key="lv_up_model_0").set_value([
+    uploader(app, "cutout").set_value(("cutout.fits", fits_bytes(image, wcs), "application/fits"))
+    run_page(app)
+    uploader(app, "model_0").set_value([
         ("m_x.fits", fits_bytes(np.zeros((40, 40), np.float32), wcs), "application/fits"),
         ("m_y.fits", fits_bytes(np.zeros((30, 40), np.float32), small_wcs((30, 40))),
          "application/fits")])
@@ -437,7 +441,9 @@ def test_bad_uploads_show_the_reason_and_keep_the_knots():
     far.wcs.crval = [30.0, 40.0]
     far.wcs.set()
     alpha = np.full((40, 40), 0.5, np.float32)
-    app.file_uploader(key="lv_up_model_0").set_value(
+    app.button(key="lv_drop_model_0").click()
+    run_page(app)
+    uploader(app, "model_0").set_value(
         [("far.fits", fits_bytes(alpha, far, extra=[(alpha, far)]), "application/fits")])
     run_page(app)
     assert any("does not cover any part of the cutout" in e.value for e in app.error)

@@ -2,8 +2,10 @@
 
 Heavy objects (cutouts, deflection fields with their cached derivative terms
 and curves) are kept with ``st.cache_resource`` keyed by the SHA-256 of the
-files' bytes, so a rerun, a new source redshift or a click reuses them. The
-checksum of an upload is computed once per upload (keyed by its file id).
+files' bytes, so a rerun, a new source redshift or a click reuses them. An
+upload's bytes move out of its widget into the page's own store as soon as they
+arrive (hashed once there), because Streamlit copies widget values on every
+rerun.
 Every `LensviewInputError` becomes a readable message; the page then keeps
 showing the last field that loaded, and the marked knots are untouched.
 """
@@ -17,10 +19,11 @@ import streamlit as st
 
 from ..errors import LensviewInputError
 
-__all__ = ["Scene", "inputs_panel", "demo_scene", "cosmology_from_choice"]
+__all__ = ["Scene", "HeldFile", "inputs_panel", "demo_scene", "files_scene", "upload_slot",
+           "held_files", "cosmology_from_choice"]
 
 _SCENE = "lv_scene"
-_CHECKSUMS = "lv_upload_checksums"
+_FILES = "lv_files"
 _MAX_MODELS = 8
 PLANCK = "Planck18"
 FLAT = "flat \u039bCDM (H0, \u03a9m)"
@@ -178,24 +181,68 @@ def _demo_file_of_model(file_name, model_name):
     return stem.endswith((".fits", ".fits.gz")) and model_name.lower().replace(" ", "_") in stem
 
 
-def _upload_content(state, upload):
-    """Bytes and SHA-256 of an upload, hashing each upload only once."""
-    checksums = state.setdefault(_CHECKSUMS, {})
-    content = upload.getvalue()
-    file_id = getattr(upload, "file_id", None) or upload.name
-    if file_id not in checksums:
-        checksums[file_id] = _checksum(content)
-    return content, checksums[file_id]
+@dataclass(frozen=True)
+class HeldFile:
+    """An uploaded file kept by the page: name, bytes and SHA-256."""
+
+    name: str
+    content: bytes
+    sha256: str
+
+    @classmethod
+    def of(cls, name, content):
+        return cls(str(name), bytes(content), _checksum(content))
 
 
-def files_scene(state, cutout_upload, model_specs, z_lens, cosmology_choice):
+def held_files(state, slot):
+    """The files held for an upload slot ("cutout", "model_0", ...)."""
+    return list(state.setdefault(_FILES, {}).get(slot, []))
+
+
+def _take_upload(state, slot, key, keep):
+    """Callback: move what an uploader holds into the page's own store, then reset it.
+
+    Streamlit copies a widget's value on every rerun; a 4096 x 4096 model
+    left in its uploader would be copied (hundreds of MB) at every click.
+    The page keeps the bytes (hashed once, here) and gives the slot a fresh,
+    empty uploader.
+    """
+    value = state.get(key)
+    uploads = value if isinstance(value, list) else ([value] if value is not None else [])
+    if uploads:
+        new = [HeldFile.of(up.name, up.getvalue()) for up in uploads]
+        state.setdefault(_FILES, {})[slot] = (held_files(state, slot) + new)[-keep:]
+    state[f"lv_upload_version_{slot}"] = state.get(f"lv_upload_version_{slot}", 0) + 1
+
+
+def _drop_upload(state, slot):
+    state.setdefault(_FILES, {}).pop(slot, None)
+
+
+def upload_slot(state, label, slot, *, keep=1, help=None):
+    """An uploader whose files the page holds (see `_take_upload`); returns the held files."""
+    version = state.get(f"lv_upload_version_{slot}", 0)
+    key = f"lv_up_{slot}_{version}"
+    st.file_uploader(label, key=key, accept_multiple_files=keep > 1, help=help,
+                     on_change=_take_upload, args=(state, slot, key, keep))
+    held = held_files(state, slot)
+    if held:
+        sizes = ", ".join(f"{h.name} ({len(h.content) / 1e6:.1f} MB)" for h in held)
+        left, right = st.columns([3, 1])
+        left.caption(f"Loaded: {sizes}")
+        right.button("Remove", key=f"lv_drop_{slot}", on_click=_drop_upload, args=(state, slot))
+    return held
+
+
+def files_scene(cutout_files, model_specs, z_lens, cosmology_choice):
     """A scene from uploaded files.
 
     Parameters
     ----------
-    cutout_upload : UploadedFile
+    cutout_files : list of `HeldFile`
+        The cutout (one file).
     model_specs : list of dict
-        ``name``, ``uploads`` (one or two files), ``units``, ``z_norm``.
+        ``name``, ``files`` (one or two `HeldFile`), ``units``, ``z_norm``.
     z_lens : float
     cosmology_choice : tuple
         `cosmology_key` of the chosen cosmology.
@@ -207,49 +254,42 @@ def files_scene(state, cutout_upload, model_specs, z_lens, cosmology_choice):
     """
     from ..export import InputFile, ModelInputs
 
-    if cutout_upload is None:
+    if not cutout_files:
         raise LensviewInputError("No image cutout is loaded; upload a FITS cutout first.")
-    content, sha = _upload_content(state, cutout_upload)
-    cutout = _cached_cutout(sha, cutout_upload.name, content)
-    files = {cutout_upload.name: content}
+    image = cutout_files[-1]
+    cutout = _cached_cutout(image.sha256, image.name, image.content)
+    files = {image.name: image.content}
     fields, model_inputs = [], []
     names_seen = set()
     for k, spec in enumerate(model_specs):
-        uploads = spec["uploads"]
-        if not uploads:
+        held = spec["files"]
+        if not held:
             raise LensviewInputError(
                 f"Model {k + 1} has no file; upload one file (two image HDUs or a two-plane cube) "
                 "or two files (x then y), or lower the number of models.")
-        if len(uploads) > 2:
-            raise LensviewInputError(
-                f"Model {k + 1} has {len(uploads)} files; give one file or two (x then y).")
         name = spec["name"].strip() or f"model {k + 1}"
         if name in names_seen:
             raise LensviewInputError(
                 f"Two models are named {name!r}; give each model its own name.")
         names_seen.add(name)
-        pairs = [_upload_content(state, up) for up in uploads]
-        contents = tuple(c for c, _ in pairs)
-        checksums = tuple(s for _, s in pairs)
-        upload_names = tuple(up.name for up in uploads)
-        field = _cached_field(checksums, upload_names, spec["units"], float(z_lens), spec["z_norm"],
-                              cosmology_choice, name, contents)
-        fields.append(field)
-        model_inputs.append(ModelInputs(name, tuple(InputFile(n, s) for n, s in
-                                                    zip(upload_names, checksums)),
+        checksums = tuple(h.sha256 for h in held)
+        names = tuple(h.name for h in held)
+        fields.append(_cached_field(checksums, names, spec["units"], float(z_lens), spec["z_norm"],
+                                    cosmology_choice, name, tuple(h.content for h in held)))
+        model_inputs.append(ModelInputs(name, tuple(InputFile(h.name, h.sha256) for h in held),
                                         spec["units"], spec["z_norm"]))
-        files.update(dict(zip(upload_names, contents)))
+        files.update({h.name: h.content for h in held})
     if not fields:
         raise LensviewInputError("No lens model is loaded; upload at least one deflection model.")
     for field in fields:
         require_overlap(cutout, field)
-    key = "files|" + sha + "|" + "|".join(
+    key = "files|" + image.sha256 + "|" + "|".join(
         f"{m.name}:{','.join(f.sha256 for f in m.files)}:{m.units}:{m.z_norm}" for m in model_inputs
     ) + f"|{float(z_lens)}|{cosmology_choice}"
-    title = f"{cutout_upload.name} with {len(fields)} model(s)"
-    return Scene(key=key, title=title, cutout=cutout, fields=fields, z_lens=float(z_lens),
-                 cosmology=fields[0].cosmology, cutout_file=InputFile(cutout_upload.name, sha),
-                 model_inputs=model_inputs, files=files)
+    return Scene(key=key, title=f"{image.name} with {len(fields)} model(s)", cutout=cutout,
+                 fields=fields, z_lens=float(z_lens), cosmology=fields[0].cosmology,
+                 cutout_file=InputFile(image.name, image.sha256), model_inputs=model_inputs,
+                 files=files)
 
 
 def require_overlap(cutout, field, samples=17):
@@ -309,9 +349,10 @@ def inputs_panel(state):
         else:
             z_lens = sidebar.number_input("Lens redshift", 0.01, 5.0, 0.4, 0.01, format="%.3f",
                                           key="lv_z_lens_files")
-            cutout_upload, specs = _file_widgets(sidebar)
+            with sidebar:
+                cutout_files, specs = _file_widgets(state)
             with st.spinner("Reading the files and preparing the models..."):
-                scene = files_scene(state, cutout_upload, specs, z_lens, key)
+                scene = files_scene(cutout_files, specs, z_lens, key)
     except LensviewInputError as error:
         errors.append(str(error))
     if scene is not None:
@@ -319,26 +360,21 @@ def inputs_panel(state):
     return state.get(_SCENE), errors
 
 
-def _file_widgets(sidebar):
-    cutout_upload = sidebar.file_uploader(
-        "Image cutout (FITS)", key="lv_up_cutout",
-        help="A 2-D image with a celestial WCS; the first such HDU is used.")
-    count = int(sidebar.number_input("Number of lens models", 1, _MAX_MODELS, 1, 1,
-                                     key="lv_n_models"))
+def _file_widgets(state):
+    cutout_files = upload_slot(state, "Image cutout (FITS)", "cutout",
+                               help="A 2-D image with a celestial WCS; the first such HDU is used.")
+    count = int(st.number_input("Number of lens models", 1, _MAX_MODELS, 1, 1, key="lv_n_models"))
     specs = []
     for k in range(count):
-        with sidebar.expander(f"Lens model {k + 1}", expanded=k == 0):
-            uploads = st.file_uploader(
-                "Deflection maps", accept_multiple_files=True, key=f"lv_up_model_{k}",
-                help="One FITS file with two image HDUs or a two-plane cube, or two files "
-                     "(x component, then y).")
-            uploads = sorted(uploads or [], key=lambda up: up.name)
-            if len(uploads) == 2:
-                swap = st.checkbox(f"x map: {uploads[0].name} \u2014 swap x and y",
-                                   key=f"lv_swap_{k}")
-                if swap:
-                    uploads = uploads[::-1]
-            default_name = Path(uploads[0].name).name.split(".")[0] if uploads else f"model {k + 1}"
+        with st.expander(f"Lens model {k + 1}", expanded=k == 0):
+            held = upload_slot(state, "Deflection maps", f"model_{k}", keep=2,
+                               help="One FITS file with two image HDUs or a two-plane cube, or "
+                                    "two files (x component, then y).")
+            held = sorted(held, key=lambda h: h.name)
+            if len(held) == 2 and st.checkbox(f"x map: {held[0].name} \u2014 swap x and y",
+                                              key=f"lv_swap_{k}"):
+                held = held[::-1]
+            default_name = Path(held[0].name).name.split(".")[0] if held else f"model {k + 1}"
             name = st.text_input("Name", value=default_name, key=f"lv_name_{k}_{default_name}")
             units = st.selectbox("Deflection units", ["arcsec", "pixel"], key=f"lv_units_{k}")
             norm = st.radio("Normalisation", ["D_ls/D_s = 1", "made for a source redshift"],
@@ -347,5 +383,5 @@ def _file_widgets(sidebar):
             if norm != "D_ls/D_s = 1":
                 z_norm = float(st.number_input("Reference source redshift", 0.02, 20.0, 2.0, 0.01,
                                                key=f"lv_znorm_{k}"))
-        specs.append(dict(name=name, uploads=uploads, units=units, z_norm=z_norm))
-    return cutout_upload, specs
+        specs.append(dict(name=name, files=held, units=units, z_norm=z_norm))
+    return cutout_files, specs
