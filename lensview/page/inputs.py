@@ -228,9 +228,9 @@ def upload_slot(state, label, slot, *, keep=1, help=None):
     held = held_files(state, slot)
     if held:
         sizes = ", ".join(f"{h.name} ({len(h.content) / 1e6:.1f} MB)" for h in held)
-        left, right = st.columns([3, 1])
-        left.caption(f"Loaded: {sizes}")
-        right.button("Remove", key=f"lv_drop_{slot}", on_click=_drop_upload, args=(state, slot))
+        st.caption(f"Loaded: {sizes}")
+        st.button("Remove " + ("these files" if len(held) > 1 else "this file"),
+                  key=f"lv_drop_{slot}", on_click=_drop_upload, args=(state, slot))
     return held
 
 
@@ -360,6 +360,16 @@ def inputs_panel(state):
     return state.get(_SCENE), errors
 
 
+def _default_model_name(held):
+    """The common stem of a model's file names (``m_x.fits``, ``m_y.fits`` -> ``m``)."""
+    import os
+
+    stems = [Path(h.name).name.split(".")[0] for h in held]
+    if not stems:
+        return ""
+    return os.path.commonprefix(stems).rstrip("_-. ") or stems[0]
+
+
 def _file_widgets(state):
     cutout_files = upload_slot(state, "Image cutout (FITS)", "cutout",
                                help="A 2-D image with a celestial WCS; the first such HDU is used.")
@@ -374,7 +384,7 @@ def _file_widgets(state):
             if len(held) == 2 and st.checkbox(f"x map: {held[0].name} \u2014 swap x and y",
                                               key=f"lv_swap_{k}"):
                 held = held[::-1]
-            default_name = Path(held[0].name).name.split(".")[0] if held else f"model {k + 1}"
+            default_name = _default_model_name(held) or f"model {k + 1}"
             name = st.text_input("Name", value=default_name, key=f"lv_name_{k}_{default_name}")
             units = st.selectbox("Deflection units", ["arcsec", "pixel"], key=f"lv_units_{k}")
             norm = st.radio("Normalisation", ["D_ls/D_s = 1", "made for a source redshift"],
