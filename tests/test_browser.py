@@ -61,7 +61,7 @@ def server(tmp_path_factory):
             if process.poll() is not None or time.monotonic() > deadline:
                 raise RuntimeError("streamlit did not start:\n" + log.read_text()[-3000:])
             time.sleep(0.5)
-        yield url
+        yield url, log
     finally:
         process.terminate()
         try:
@@ -95,13 +95,22 @@ def test_click_on_a_demo_knot_measures_it_and_downloads_regions(server, browser,
     from lensview.page.viewport import Viewport
     from regions import PointPixelRegion, Regions
 
+    from playwright.sync_api import TimeoutError as PlaywrightTimeout
+
+    url, log = server
     cutout, fields, knots = load_demo()
     page = browser.new_page(viewport={"width": 1500, "height": 1250}, accept_downloads=True)
-    page.goto(server)
-    frame = page.wait_for_selector(COMPONENT_FRAME, timeout=START_TIMEOUT_S * 1000).content_frame()
-    frame.wait_for_function("() => { const i = document.getElementById('image');"
-                            " return i && i.complete && i.naturalWidth > 0 && i.width > 0; }",
-                            timeout=START_TIMEOUT_S * 1000)
+    page.goto(url)
+    try:
+        frame = page.wait_for_selector(COMPONENT_FRAME,
+                                       timeout=START_TIMEOUT_S * 1000).content_frame()
+        frame.wait_for_function("() => { const i = document.getElementById('image');"
+                                " return i && i.complete && i.naturalWidth > 0 && i.width > 0; }",
+                                timeout=START_TIMEOUT_S * 1000)
+    except PlaywrightTimeout:
+        page.screenshot(path=str(tmp_path / "no_picture.png"))
+        pytest.fail("The picture never appeared; page text:\n" + page.inner_text("body")[:2000]
+                    + "\nserver log:\n" + log.read_text()[-3000:])
     image = frame.locator("#image")
     natural_w, natural_h, shown_w, shown_h = image.evaluate(
         "i => [i.naturalWidth, i.naturalHeight, i.width, i.height]")
@@ -123,7 +132,7 @@ def test_click_on_a_demo_knot_measures_it_and_downloads_regions(server, browser,
     expected = lv.measure_candidates(clicked, fields, Z_SOURCE)
 
     table = page.locator("[data-testid='stTable'] table").first
-    table.locator("tbody tr").first.wait_for(timeout=60_000)
+    table.locator("tbody tr", has_text="K1").nth(len(fields) - 1).wait_for(timeout=60_000)
     header, rows = read_table(table)
     models = [row[header.index("model")] for row in rows]
     assert models == list(expected["model"])
