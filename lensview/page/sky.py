@@ -33,7 +33,7 @@ def display_settings(model_names=()):
     limits_name = right.selectbox("Limits", list(LIMIT_CHOICES), key="lv_limits")
     left, right = sidebar.columns(2)
     cmap = left.selectbox("Colour map", COLOUR_MAPS, key="lv_cmap")
-    width = right.selectbox("Picture detail (px)", WIDTHS, index=2, key="lv_width",
+    width = right.selectbox("Picture detail (px)", WIDTHS, index=1, key="lv_width",
                            help="Width of the rendered picture; it is shown at the column's width.")
     show_curves = sidebar.checkbox("Critical curves", value=True, key="lv_show_curves")
     show_contours = sidebar.checkbox("Magnification contours |\u03bc| = 3, 10, 30", value=False,
