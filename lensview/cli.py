@@ -139,6 +139,9 @@ def cmd_measure(args):
         cutout = read_cutout(args.cutout)
     coords, labels, _ = _candidates(args.candidates, cutout.wcs if cutout else None)
     fields = load_models(args)
+    if cutout is not None:
+        for field in fields:
+            field.require_overlap(cutout.wcs, cutout.data.shape)
     _progress(f"measuring {len(coords)} candidate(s) against {len(fields)} model(s)")
     table = measure_candidates(coords, fields, args.z_source, cosmology=_cosmology(args), labels=labels)
     if cutout is not None and args.aperture:
@@ -214,6 +217,8 @@ def cmd_figure(args):
 
     cutout = read_cutout(args.cutout)
     fields = load_models(args)
+    for field in fields:
+        field.require_overlap(cutout.wcs, cutout.data.shape)
     curves = []
     for field in fields:
         curves += list(field.critical_curves(args.z_source))

@@ -159,6 +159,7 @@ class DeflectionField:
         self._tiles = _TileCache(self)
         self._coarse_terms = None
         self._curve_cache = {}
+        self._caustic_cache = {}
         self._check_not_empty()
 
     # ------------------------------------------------------------------ construction
@@ -238,6 +239,28 @@ class DeflectionField:
         """
         return tuple(np.asarray(alpha[rows, cols], np.float64) * factor
                      for alpha, factor in zip(self._alpha, self._to_pixels))
+
+    def require_overlap(self, wcs, shape, samples=17):
+        """Raise `LensviewInputError` if the model covers no part of an image.
+
+        Parameters
+        ----------
+        wcs : `~astropy.wcs.WCS`
+            Celestial WCS of the image (e.g. the cutout).
+        shape : tuple of int
+            (ny, nx) of the image.
+        samples : int
+            The image is sampled on a ``samples`` x ``samples`` grid.
+        """
+        ny, nx = shape
+        xs, ys = np.meshgrid(np.linspace(0, nx - 1, samples), np.linspace(0, ny - 1, samples))
+        coords = wcs.celestial.pixel_to_world(xs.ravel(), ys.ravel())
+        if not np.any(self.contains(coords)):
+            centre = wcs.celestial.pixel_to_world((nx - 1) / 2, (ny - 1) / 2)
+            raise LensviewInputError(
+                f"Model {self.name!r} does not cover any part of the cutout (centred on RA "
+                f"{centre.ra.deg:.5f}, Dec {centre.dec.deg:.5f}); use a model of this field, or a "
+                "cutout inside the model's footprint.")
 
     # ------------------------------------------------------------------ point evaluation
     def local_terms(self, x, y, *, second_derivatives=False, warn=True):
@@ -482,7 +505,12 @@ class DeflectionField:
         """Caustics (source-plane images of the critical curves), cusps located."""
         from .curves import caustics
 
-        return caustics(self, z_source, self.critical_curves(z_source))
+        key = round(float(z_source), 12)
+        if key not in self._caustic_cache:
+            if len(self._caustic_cache) >= _CURVE_CACHE_SIZE:
+                self._caustic_cache.pop(next(iter(self._caustic_cache)))
+            self._caustic_cache[key] = caustics(self, z_source, self.critical_curves(z_source))
+        return self._caustic_cache[key]
 
     @property
     def tiles(self):

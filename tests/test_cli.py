@@ -145,3 +145,13 @@ def test_session_check_names_the_file_that_differs(files, tmp_path, capsys):
     assert status == 2
     assert "sie_cube.fits" in captured.out + captured.err
     assert "differ" in (captured.out + captured.err)
+
+
+def test_cutout_outside_every_model_exits_2(files, tmp_path, capsys):
+    tmp = files[0]
+    far = make_wcs(100, 100, crval=(151.0, 2.0)).to_header()
+    fits.writeto(tmp_path / "far.fits", np.zeros((100, 100), np.float32), far)
+    status = main(["measure", *model_args(tmp), "--candidates", str(tmp / "knots.ecsv"),
+                   "--cutout", str(tmp_path / "far.fits"), "-o", str(tmp_path / "out.ecsv")])
+    assert status == 2
+    assert "does not cover any part of the cutout" in capsys.readouterr().err

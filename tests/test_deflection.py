@@ -206,3 +206,13 @@ def test_float32_maps_stay_float32():
     with warnings.catch_warnings():
         warnings.simplefilter("error")
         assert np.isfinite(field.magnification(CENTRE.directional_offset_by(0 * u.deg, 2 * u.arcsec), 2.0))
+
+
+def test_model_without_overlap_is_an_input_error():
+    field, _ = field_for([analytic.IsothermalSphere(CENTRE, theta_e=3.0 * u.arcsec)], shape=(100, 100))
+    elsewhere = analytic.make_wcs(CENTRE.directional_offset_by(90 * u.deg, 60 * u.arcsec), (80, 80),
+                                  SCALE)
+    with pytest.raises(LensviewInputError, match="does not cover any part of the cutout"):
+        field.require_overlap(elsewhere, (80, 80))
+    field.require_overlap(analytic.make_wcs(CENTRE, (80, 80), SCALE), (80, 80))
+    assert field.caustics(2.0) is field.caustics(2.0)  # cached per source redshift

@@ -282,7 +282,7 @@ def files_scene(cutout_files, model_specs, z_lens, cosmology_choice):
     if not fields:
         raise LensviewInputError("No lens model is loaded; upload at least one deflection model.")
     for field in fields:
-        require_overlap(cutout, field)
+        field.require_overlap(cutout.wcs, cutout.data.shape)
     key = "files|" + image.sha256 + "|" + "|".join(
         f"{m.name}:{','.join(f.sha256 for f in m.files)}:{m.units}:{m.z_norm}" for m in model_inputs
     ) + f"|{float(z_lens)}|{cosmology_choice}"
@@ -290,25 +290,6 @@ def files_scene(cutout_files, model_specs, z_lens, cosmology_choice):
                  fields=fields, z_lens=float(z_lens), cosmology=fields[0].cosmology,
                  cutout_file=InputFile(image.name, image.sha256), model_inputs=model_inputs,
                  files=files)
-
-
-def require_overlap(cutout, field, samples=17):
-    """Raise if a model covers no part of the cutout.
-
-    The check samples the cutout on a grid and asks the model which sample
-    positions it covers (`~lensview.DeflectionField.contains`).
-    """
-    import numpy as np
-
-    ny, nx = cutout.data.shape
-    xs, ys = np.meshgrid(np.linspace(0, nx - 1, samples), np.linspace(0, ny - 1, samples))
-    coords = cutout.wcs.pixel_to_world(xs.ravel(), ys.ravel())
-    if not np.any(field.contains(coords)):
-        centre = cutout.wcs.pixel_to_world((nx - 1) / 2, (ny - 1) / 2)
-        raise LensviewInputError(
-            f"Model {field.name!r} does not cover any part of the cutout (centred on RA "
-            f"{centre.ra.deg:.5f}, Dec {centre.dec.deg:.5f}); upload a model of this field, or a "
-            "cutout inside the model's footprint.")
 
 
 # ---------------------------------------------------------------------------- the panel
