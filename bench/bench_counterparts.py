@@ -11,14 +11,12 @@ field. Both run in this process; the script prints medians, the ratio, and the
 accuracy of both against the closed-form lens equation solved with scipy.
 """
 
-import gc
-import statistics
-import time
 
 import numpy as np
 from scipy.optimize import root
 
 import lensview as lv
+from timing import timed
 from lensview.cosmology import distance_ratio
 
 SIZE = 2048
@@ -28,7 +26,6 @@ POSITION_ANGLE = 0.4
 Z_LENS = 0.4
 Z_SOURCE = 2.0
 SCALE_ARCSEC = 0.03
-REPEATS = 5
 ROW_CHUNK = 128
 
 
@@ -96,16 +93,6 @@ def reference_images(field, f, beta):
         if all(np.hypot(*(point - other)) > 0.05 for other in unique):
             unique.append(point)
     return np.array(unique)
-
-
-def timed(func, repeats=REPEATS):
-    times, result = [], None
-    for _ in range(repeats):
-        gc.collect()
-        start = time.perf_counter()
-        result = func()
-        times.append(time.perf_counter() - start)
-    return statistics.median(times), result
 
 
 def main():

@@ -9,11 +9,7 @@ script prints medians, the ratio, peak memory and the accuracy of each against
 the analytic kappa = 1/2 ellipse.
 """
 
-import gc
-import statistics
 import tempfile
-import time
-import tracemalloc
 from pathlib import Path
 
 import contourpy
@@ -22,6 +18,7 @@ from astropy.io import fits
 from astropy.wcs import WCS
 
 import lensview as lv
+from timing import peak_memory, timed
 from lensview.cosmology import distance_ratio
 
 SIZE = 4096
@@ -30,7 +27,6 @@ AXIS_RATIO = 0.7
 POSITION_ANGLE = 0.4
 Z_LENS = 0.4
 Z_SOURCES = (2.0, 2.5, 3.0, 3.5, 4.0, 1.5, 5.0)
-REPEATS = 5
 
 
 def sie_pixels(n, theta_e, q, pa, x0, y0, dtype=np.float32):
@@ -80,25 +76,6 @@ def reference_curves(path_x, path_y, f, derivatives=None):
     det_a = 1.0 - f * trace + f * f * det
     lines = contourpy.contour_generator(z=det_a).lines(0.0)
     return lines, derivatives
-
-
-def timed(func, repeats=REPEATS):
-    times, result = [], None
-    for _ in range(repeats):
-        gc.collect()
-        start = time.perf_counter()
-        result = func()
-        times.append(time.perf_counter() - start)
-    return statistics.median(times), result
-
-
-def peak_memory(func):
-    gc.collect()
-    tracemalloc.start()
-    func()
-    _, peak = tracemalloc.get_traced_memory()
-    tracemalloc.stop()
-    return peak / 2**20
 
 
 def main():
