@@ -66,7 +66,8 @@ class LocalTerms:
     arrays, d/dx and d/dy) for Newton steps on det A.
     """
 
-    def __init__(self, **arrays):
+    def __init__(self, frame, **arrays):
+        self.frame = frame
         self.__dict__.update(arrays)
 
     def det_a(self, f):
@@ -83,8 +84,13 @@ class LocalTerms:
         return 0.5 * f * (self.a11 + self.a22)
 
     def shear(self, f):
-        """Shear components (gamma1, gamma2) in the map's pixel frame."""
-        return 0.5 * f * (self.a11 - self.a22), 0.5 * f * (self.a12 + self.a21)
+        """Shear components (gamma1, gamma2) on the sky's axes.
+
+        The Jacobian is taken to sky axes first (M a M^-1, M the pixel-to-
+        plane matrix): trace and determinant survive the change of frame, the
+        shear only when pixels are square.
+        """
+        return _sky_shear(self.a11, self.a12, self.a21, self.a22, self.frame, f)
 
     def eigenvalues(self, f):
         """(lambda_t, lambda_r) of the symmetric part of A."""
@@ -156,6 +162,10 @@ class DeflectionField:
         #: arcsec per pixel along the map's x and y axes
         self.pixel_scales = scales * u.arcsec
         self._to_pixels = (1.0 / scales) if units == "arcsec" else np.ones(2)
+        matrix = self.wcs.pixel_scale_matrix
+        matrix = matrix / np.sqrt(abs(np.linalg.det(matrix)))
+        #: (M, M^-1): pixel offsets to sky-plane offsets, normalised to unit determinant
+        self._frame = (matrix, np.linalg.inv(matrix))
         self._tiles = _TileCache(self)
         self._coarse_terms = None
         self._curve_cache = {}
@@ -331,7 +341,7 @@ class DeflectionField:
                 terms[key] = tuple(v.reshape(shape) for v in val)
             else:
                 terms[key] = val.reshape(shape)
-        return LocalTerms(**terms)
+        return LocalTerms(self._frame, **terms)
 
     def lens_quantities(self, coords, z_source):
         """All local lensing quantities at sky positions.
@@ -523,7 +533,7 @@ class _TileCache:
 
     Each tile holds the nodes ``TILE*r .. TILE*r + TILE`` in each axis (shared
     edges are computed twice, identically). Stored per node: T, D, the two
-    shear terms G1 = (a11 - a22)/2 and G2 = (a12 + a21)/2, and whether the
+    shear terms G1, G2 on sky axes (see `LocalTerms.shear`), and whether the
     grid resolves the field there.
     """
 
@@ -590,11 +600,12 @@ class _TileCache:
                 relative = np.abs(derivatives4[key] - derivatives2[key]) / np.maximum(
                     np.abs(derivatives4[key]), 1.0)
             disagreement = np.fmax(disagreement, relative)
+        gamma1, gamma2 = _sky_shear(a11, a12, a21, a22, field._frame, 1.0)
         return {
             "T": (a11 + a22).astype(np.float32),
             "D": (a11 * a22 - a12 * a21).astype(np.float32),
-            "G1": (0.5 * (a11 - a22)).astype(np.float32),
-            "G2": (0.5 * (a12 + a21)).astype(np.float32),
+            "G1": gamma1.astype(np.float32),
+            "G2": gamma2.astype(np.float32),
             "unresolved": disagreement > UNRESOLVED_TOLERANCE,
         }
 
@@ -611,6 +622,18 @@ class _TileCache:
         out[:-1, -1] = blocks[:, -1, :TILE, TILE].reshape(-1)
         out[-1, -1] = blocks[-1, -1, TILE, TILE]
         return out[:ny, :nx]
+
+
+def _sky_shear(a11, a12, a21, a22, frame, f):
+    """Shear (gamma1, gamma2) of the pixel-frame Jacobian a, on sky axes."""
+    (m11, m12), (m21, m22) = frame[0]
+    (n11, n12), (n21, n22) = frame[1]
+    # b = M a M^-1, written out for stacks of 2 x 2 matrices.
+    c11, c12 = a11 * n11 + a12 * n21, a11 * n12 + a12 * n22
+    c21, c22 = a21 * n11 + a22 * n21, a21 * n12 + a22 * n22
+    b11, b12 = m11 * c11 + m12 * c21, m11 * c12 + m12 * c22
+    b21, b22 = m21 * c11 + m22 * c21, m21 * c12 + m22 * c22
+    return 0.5 * f * (b11 - b22), 0.5 * f * (b12 + b21)
 
 
 def _as_map(values, label):

@@ -232,10 +232,11 @@ def _fold_coefficient(field, plane, foot, f):
     x, y = field.sky_to_pixels(foot_sky)
     terms = field.local_terms(x, y, second_derivatives=True, warn=False)
     gx, gy = terms.grad_det_a(f)
-    # det A is a scalar; its gradient per arcsec follows from the gradient per pixel
-    # through the (orthogonal, possibly anisotropic) pixel scales.
-    sx, sy = field.pixel_scales.to_value(u.arcsec)
-    fold[good] = 1.0 / np.hypot(gx / sx, gy / sy)
+    # theta (arcsec) = M p, so grad_theta = M^-T grad_p for any pixel grid, skewed or not.
+    inverse = np.linalg.inv(field.wcs.pixel_scale_matrix * 3600.0)
+    ex = inverse[0, 0] * gx + inverse[1, 0] * gy
+    ey = inverse[0, 1] * gx + inverse[1, 1] * gy
+    fold[good] = 1.0 / np.hypot(ex, ey)
     return fold
 
 

@@ -216,3 +216,29 @@ def test_model_without_overlap_is_an_input_error():
         field.require_overlap(elsewhere, (80, 80))
     field.require_overlap(analytic.make_wcs(CENTRE, (80, 80), SCALE), (80, 80))
     assert field.caustics(2.0) is field.caustics(2.0)  # cached per source redshift
+
+
+def test_shear_and_eigenvalues_on_non_square_pixels():
+    """gamma is not invariant under a non-conformal pixel grid; lensview takes the
+    Jacobian to sky axes first."""
+    wcs = WCS(naxis=2)
+    wcs.wcs.ctype = ["RA---TAN", "DEC--TAN"]
+    wcs.wcs.crval = [CENTRE.ra.deg, CENTRE.dec.deg]
+    wcs.wcs.crpix = [100.5, 80.5]
+    wcs.wcs.cdelt = [-0.04 / 3600, 0.08 / 3600]
+    wcs.wcs.set()
+    lens = analytic.IsothermalEllipsoid(CENTRE, theta_e=3.0 * u.arcsec, q=0.7, pa=30 * u.deg)
+    ax, ay = analytic.deflection_maps([lens], wcs, (160, 200))
+    field = lv.DeflectionField(ax, ay, wcs, z_lens=Z_LENS)
+    coords = CENTRE.directional_offset_by(np.linspace(0, 300, 7) * u.deg, 2.5 * u.arcsec)
+    q = field.lens_quantities(coords, 2.0)
+    # Isothermal: gamma = kappa, lambda_t = 1 - 2 kappa, lambda_r = 1 (Kormann et al. 1994).
+    np.testing.assert_allclose(q["gamma"], q["kappa"], rtol=1e-4)
+    np.testing.assert_allclose(q["lambda_t"], 1 - 2 * q["kappa"], atol=1e-4)
+    np.testing.assert_allclose(q["lambda_r"], 1.0, atol=1e-4)
+    curves = field.critical_curves(2.0)
+    assert [c.kind for c in curves] == ["tangential"]
+    maps = field.grid_maps(2.0)
+    resolved = np.isfinite(maps["kappa"]) & (maps["kappa"] < 1.0)  # away from the singular centre
+    assert resolved.sum() > 15000
+    np.testing.assert_allclose(maps["gamma"][resolved], maps["kappa"][resolved], rtol=2e-3)
