@@ -25,6 +25,8 @@ __all__ = ["measure_candidates", "summarize_models"]
 
 _REASON_OUTSIDE = "outside the model footprint"
 _REASON_NO_CURVE = "the model has no critical curve at this source redshift"
+_REASON_CUT = ("the nearest critical curve ends here, cut by the map edge or masked cells: "
+               "the true curve may run closer, so the offset is an upper limit")
 
 
 def measure_candidates(coords, fields, z_source, *, cosmology=None, labels=None):
@@ -54,12 +56,17 @@ def measure_candidates(coords, fields, z_source, *, cosmology=None, labels=None)
         ``kappa``, ``gamma``, ``lambda_t``, ``lambda_r``,
         ``fold_coefficient_arcsec``, ``fold_mu``, ``source_ra``,
         ``source_dec``, ``caustic_offset_arcsec``, ``caustic_offset_pc`` and
-        ``reason`` (why a row holds NaN, empty otherwise).
+        ``reason`` (why a row holds NaN or an offset is only an upper limit,
+        empty otherwise).
     """
     coords = SkyCoord(coords).icrs
     coords = coords.reshape(-1) if coords.shape else coords.reshape((1,))
     if not isinstance(fields, (list, tuple)):
         fields = [fields]
+    if not fields:
+        from .errors import LensviewInputError
+
+        raise LensviewInputError("No lens model was given; supply at least one DeflectionField.")
     labels = _labels(labels, len(coords))
     rows = [_measure_one_model(coords, field, z_source, cosmology, labels) for field in fields]
     table = _stack(rows)
@@ -110,6 +117,7 @@ def _measure_one_model(coords, field, z_source, cosmology, labels):
     curve_id = np.full(n, -1, dtype=int)
     foot = np.full((n, 2), np.nan)
     fold = np.full(n, np.nan)
+    cut_short = np.zeros(n, dtype=bool)
     if len(curves):
         points = _xy(plane, coords)
         polylines = [_xy(plane, c.sky) for c in curves]
@@ -126,6 +134,11 @@ def _measure_one_model(coords, field, z_source, cosmology, labels):
             if curve.closed:
                 inside = point_in_polygon(points[mine], polylines[k])
                 side[mine] = np.where(inside, "inside", "outside")
+            else:
+                last = len(polylines[k]) - 2
+                at_end = mine & (((nearest.segment_index == 0) & (nearest.t <= 0))
+                                 | ((nearest.segment_index == last) & (nearest.t >= 1)))
+                cut_short[at_end] = True
         foot = _refine_feet(field, plane, foot, f)
         offset = np.hypot(*(points - foot).T)
         fold = _fold_coefficient(field, plane, foot, f)
@@ -136,12 +149,18 @@ def _measure_one_model(coords, field, z_source, cosmology, labels):
             float)
     offset = np.where(defined, offset, np.nan)
     caustic_offset = np.where(defined, caustic_offset, np.nan)
+    foot = np.where(defined[:, None], foot, np.nan)
+    kind = np.where(defined, kind, "")
+    side = np.where(defined, side, "")
+    curve_id = np.where(defined, curve_id, -1)
     foot_sky = plane.to_sky(foot[:, 0] * u.arcsec, foot[:, 1] * u.arcsec)
 
     lens_scale = _cosmo.angular_scale(field.z_lens, cosmo).to(u.pc / u.arcsec)
     source_scale = _cosmo.angular_scale(z_source, cosmo).to(u.pc / u.arcsec)
     offset_pc = offset * lens_scale.value
-    reason = np.where(~defined, _REASON_OUTSIDE, np.where(len(curves) == 0, _REASON_NO_CURVE, ""))
+    reason = np.where(~defined, _REASON_OUTSIDE,
+                      np.where(len(curves) == 0, _REASON_NO_CURVE,
+                               np.where(cut_short, _REASON_CUT, "")))
     with np.errstate(divide="ignore", invalid="ignore"):
         fold_mu = fold / offset
     parity = np.where(defined, np.sign(det_a), 0).astype(int)

@@ -151,3 +151,31 @@ def test_model_spread_summary():
     # Candidate A at r = 53 f px lies outside the narrow model's curve and inside the others.
     assert not summary["same_side"][0] and summary["parity"][0] == 0
     assert summary["same_side"][1] and summary["parity"][1] == 1
+
+
+def test_offset_to_a_curve_cut_by_a_mask_is_flagged():
+    n, theta_unit, q, pa = 300, 110.0, 0.7, 0.6
+    x0, y0 = n / 2, n / 2
+    ax, ay = sie(n, theta_unit, q, pa, x0, y0)
+    field_full = lv.DeflectionField(ax, ay, make_wcs(n, n), units="pixel", z_lens=Z_LENS)
+    curve = field_full.critical_curves(2.0)[0].map_pixels
+    hole_x, hole_y = curve[len(curve) // 3]
+    masked_x, masked_y = ax.copy(), ay.copy()
+    rows = slice(int(hole_y) - 15, int(hole_y) + 15)
+    cols = slice(int(hole_x) - 15, int(hole_x) + 15)
+    masked_x[rows, cols] = np.nan
+    masked_y[rows, cols] = np.nan
+    field = lv.DeflectionField(masked_x, masked_y, make_wcs(n, n), units="pixel", z_lens=Z_LENS)
+    # A knot just outside the hole, beside where the true curve runs through it.
+    knot = field.pixels_to_sky(np.array([hole_x + 19.0, 60.0]), np.array([hole_y, 60.0]))
+    table = lv.measure_candidates(knot, field, 2.0)
+    assert "upper limit" in table["reason"][0]
+    truth = lv.measure_candidates(knot, field_full, 2.0)
+    assert table["offset_arcsec"][0] >= truth["offset_arcsec"][0] - 1e-9
+
+
+def test_no_model_is_an_input_error(sie_case):
+    from lensview.errors import LensviewInputError
+
+    with pytest.raises(LensviewInputError, match="No lens model"):
+        lv.measure_candidates(sie_case[0].pixels_to_sky(np.array([10.0]), np.array([10.0])), [], 2.0)
