@@ -33,11 +33,13 @@ def _add_models(parser):
     group.add_argument("--model-name", action="append", default=[], metavar="NAME",
                        help="name of each model, in the order of --model")
     group.add_argument("--units", action="append", default=[], choices=["arcsec", "pixel"],
-                       help="deflection units per model (default arcsec); one value applies to all")
-    group.add_argument("--z-norm", action="append", default=[], type=_optional_float,
+                       help="deflection units per model (default: the files' BUNIT keyword); "
+                            "one value applies to all")
+    group.add_argument("--z-norm", action="append", default=[], type=_normalisation,
                        metavar="Z|unit",
                        help="redshift the maps were made for, or 'unit' for maps normalised to "
-                            "D_ls/D_s = 1 (default); one value applies to all")
+                            "D_ls/D_s = 1 (default: the files' Z_NORM keyword, else unit); "
+                            "one value applies to all")
     group.add_argument("--z-lens", type=float, required=True, help="lens redshift")
     group.add_argument("--z-source", type=float, required=True, help="source redshift")
     group.add_argument("--h0", type=float, default=None,
@@ -46,10 +48,19 @@ def _add_models(parser):
                        help="matter density for a flat LCDM cosmology (with --h0)")
 
 
-def _optional_float(text):
+_UNIT_NORMALISATION = "unit"
+_FROM_HEADER = "header"
+
+
+def _normalisation(text):
     if text.lower() in ("unit", "1", "none"):
-        return None
-    return float(text)
+        return _UNIT_NORMALISATION
+    try:
+        return float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(
+            f"{text!r} is neither a redshift nor 'unit'; give the source redshift the maps were "
+            "made for, or 'unit' for maps normalised to D_ls/D_s = 1") from None
 
 
 def _per_model(values, n, default, label):
@@ -71,17 +82,22 @@ def _cosmology(args):
 
     if args.h0 is None or args.om0 is None:
         raise LensviewInputError("Give both --h0 and --om0 for a flat LCDM cosmology, or neither for Planck18.")
+    if not (np.isfinite(args.h0) and args.h0 > 0):
+        raise LensviewInputError(f"--h0 {args.h0} is not a Hubble constant; give a positive value in km/s/Mpc.")
+    if not (np.isfinite(args.om0) and 0 < args.om0 <= 1):
+        raise LensviewInputError(f"--om0 {args.om0} is not a matter density; give a value in (0, 1].")
     return FlatLambdaCDM(H0=args.h0, Om0=args.om0)
 
 
 def load_models(args):
     """DeflectionFields from the model options of a parsed command line."""
     from .deflection import DeflectionField
+    from .fitsio import read_deflection
 
     n = len(args.model)
     names = _per_model(args.model_name, n, None, "--model-name") if args.model_name else [None] * n
-    units = _per_model(args.units, n, "arcsec", "--units")
-    norms = _per_model(args.z_norm, n, None, "--z-norm")
+    units = _per_model(args.units, n, None, "--units")
+    norms = _per_model(args.z_norm, n, _FROM_HEADER, "--z-norm")
     cosmology = _cosmology(args)
     fields = []
     for k, (spec, name, unit, z_norm) in enumerate(zip(args.model, names, units, norms)):
@@ -89,9 +105,16 @@ def load_models(args):
         if len(paths) not in (1, 2):
             raise LensviewInputError(f"--model {spec!r}: give one file or two files separated by a comma.")
         _progress(f"loading model {k + 1}/{n}: {spec}")
-        field = DeflectionField.from_fits(*paths, units=unit, z_lens=args.z_lens, z_norm=z_norm,
-                                          cosmology=cosmology, name=name or Path(paths[0]).stem)
-        fields.append(field)
+        maps = read_deflection(*paths, units=unit)
+        if z_norm == _FROM_HEADER:
+            z_norm = maps.header.get("Z_NORM")
+            if z_norm is not None:
+                _progress(f"  maps made for a source at z = {z_norm} (Z_NORM in the header)")
+        elif z_norm == _UNIT_NORMALISATION:
+            z_norm = None
+        fields.append(DeflectionField(maps.alpha_x, maps.alpha_y, maps.wcs, units=maps.units,
+                                      z_lens=args.z_lens, z_norm=z_norm, cosmology=cosmology,
+                                      name=name or Path(paths[0]).stem))
     return fields
 
 
@@ -132,6 +155,12 @@ def cmd_measure(args):
     from .export import write_table
     from .measure import measure_candidates, summarize_models
 
+    if args.aperture is not None and not args.cutout:
+        raise LensviewInputError("--aperture needs --cutout: photometry is measured on the cutout.")
+    if args.aperture is not None and not args.aperture > 0:
+        raise LensviewInputError(f"--aperture {args.aperture} must be a positive radius in arcsec.")
+    if args.zero_point is not None and args.aperture is None:
+        raise LensviewInputError("--zero-point is used only with --aperture photometry; add --aperture.")
     cutout = None
     if args.cutout:
         from .fitsio import read_cutout
@@ -144,7 +173,7 @@ def cmd_measure(args):
             field.require_overlap(cutout.wcs, cutout.data.shape)
     _progress(f"measuring {len(coords)} candidate(s) against {len(fields)} model(s)")
     table = measure_candidates(coords, fields, args.z_source, cosmology=_cosmology(args), labels=labels)
-    if cutout is not None and args.aperture:
+    if cutout is not None and args.aperture is not None:
         table = _add_photometry(table, coords, cutout, args)
     cosmology = _cosmology(args) or fields[0].cosmology
     write_table(table, args.output, cosmology=cosmology)
@@ -185,7 +214,7 @@ def cmd_images(args):
 
     fields = load_models(args)
     coord = SkyCoord(args.ra * u.deg, args.dec * u.deg)
-    psf = args.psf_fwhm * u.arcsec if args.psf_fwhm else None
+    psf = args.psf_fwhm * u.arcsec if args.psf_fwhm is not None else None
     tables = []
     for field in fields:
         _progress(f"solving the lens equation on {field.name}")
@@ -205,7 +234,7 @@ def cmd_pair(args):
 
     coords, labels, _ = _candidates(args.candidates)
     fields = load_models(args)
-    tolerance = args.tolerance * u.arcsec if args.tolerance else None
+    tolerance = args.tolerance * u.arcsec if args.tolerance is not None else None
     table = pair_counterparts(coords, fields, args.z_source, tolerance=tolerance)
     write_table(table, args.output)
     print(f"wrote {len(table)} proposed pair(s) to {args.output}")

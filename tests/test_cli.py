@@ -155,3 +155,28 @@ def test_cutout_outside_every_model_exits_2(files, tmp_path, capsys):
                    "--cutout", str(tmp_path / "far.fits"), "-o", str(tmp_path / "out.ecsv")])
     assert status == 2
     assert "does not cover any part of the cutout" in capsys.readouterr().err
+
+
+def test_units_and_normalisation_come_from_the_headers(files, tmp_path, capsys):
+    tmp, field, coords = files
+    ratio = field.scaling_factor(3.0)
+    header = fits.getheader(tmp / "sie_x.fits")
+    header["Z_NORM"] = 3.0
+    # Maps made for z = 3: the unit maps times D_ls/D_s(3) (design notes, sec. 4).
+    fits.writeto(tmp_path / "z3_x.fits", fits.getdata(tmp / "sie_x.fits") * ratio, header)
+    fits.writeto(tmp_path / "z3_y.fits", fits.getdata(tmp / "sie_y.fits") * ratio, header)
+    out = tmp_path / "z3.ecsv"
+    assert main(["measure", "--model", f"{tmp_path / 'z3_x.fits'},{tmp_path / 'z3_y.fits'}",
+                 "--z-lens", str(Z_LENS), "--z-source", str(Z_SOURCE),
+                 "--candidates", str(tmp / "knots.ecsv"), "-o", str(out)]) == 0
+    assert "Z_NORM" in capsys.readouterr().err
+    expected = lv.measure_candidates(coords, field, Z_SOURCE)
+    np.testing.assert_allclose(Table.read(out)["mu"], expected["mu"], rtol=1e-4)
+    del header["BUNIT"]
+    fits.writeto(tmp_path / "bare_x.fits", fits.getdata(tmp / "sie_x.fits"), header)
+    fits.writeto(tmp_path / "bare_y.fits", fits.getdata(tmp / "sie_y.fits"), header)
+    status = main(["measure", "--model", f"{tmp_path / 'bare_x.fits'},{tmp_path / 'bare_y.fits'}",
+                   "--z-lens", str(Z_LENS), "--z-source", str(Z_SOURCE),
+                   "--candidates", str(tmp / "knots.ecsv"), "-o", str(tmp_path / "bare.ecsv")])
+    assert status == 2
+    assert "BUNIT" in capsys.readouterr().err
