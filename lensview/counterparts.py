@@ -201,11 +201,6 @@ def predict_counterimages(coord, field, z_source, *, psf_fwhm=None):
     return table
 
 
-def _node_deflection(field, rows, cols):
-    """Unscaled deflection (map pixels) at integer nodes, read straight from the maps."""
-    return field.node_deflection(rows, cols)
-
-
 def _block_bounds(field, f):
     """Source-plane bounding boxes of the traced nodes of every block.
 
@@ -273,7 +268,7 @@ def _triangle_seeds(field, f, beta):
     rows = block_rows[:, None] * BLOCK + offsets
     cols = block_cols[:, None] * BLOCK + offsets
     valid = (rows < ny)[:, :, None] & (cols < nx)[:, None, :]
-    ax, ay = _node_deflection(field, np.minimum(rows, ny - 1)[:, :, None],
+    ax, ay = field.node_deflection(np.minimum(rows, ny - 1)[:, :, None],
                               np.minimum(cols, nx - 1)[:, None, :])
     bx = np.where(valid, cols[:, None, :] - f * ax, np.nan)
     by = np.where(valid, rows[:, :, None] - f * ay, np.nan)

@@ -156,6 +156,7 @@ class DeflectionField:
         self.name = str(name) if name else "model"
         self.units = units
         self.wcs = wcs.celestial
+        _warn_if_not_linear(self.wcs, self.name)
         self.shape = alpha_x.shape
         self._alpha = (alpha_x, alpha_y)
         scales = proj_plane_pixel_scales(self.wcs) * 3600.0
@@ -504,6 +505,7 @@ class DeflectionField:
         """
         from .curves import critical_curves
 
+        self.scaling_factor(z_source)  # a clear error for a bad redshift before anything else
         key = round(float(z_source), 12)
         if key not in self._curve_cache:
             if len(self._curve_cache) >= _CURVE_CACHE_SIZE:
@@ -515,6 +517,7 @@ class DeflectionField:
         """Caustics (source-plane images of the critical curves), cusps located."""
         from .curves import caustics
 
+        self.scaling_factor(z_source)
         key = round(float(z_source), 12)
         if key not in self._caustic_cache:
             if len(self._caustic_cache) >= _CURVE_CACHE_SIZE:
@@ -662,6 +665,18 @@ def _redshift(value, role):
 
 def _icrs(coords):
     return coords if coords.frame.name == "icrs" else coords.icrs
+
+
+def _warn_if_not_linear(wcs, name):
+    """The lens equation is solved on the pixel grid: exact for a TAN plane without
+    distortion terms, approximate otherwise."""
+    projections = {ctype[5:8] for ctype in wcs.wcs.ctype}
+    if projections != {"TAN"} or wcs.sip is not None or wcs.cpdis1 is not None or wcs.det2im1 is not None:
+        warnings.warn(
+            f"Model {name!r} has a {'/'.join(sorted(projections))} WCS"
+            f"{' with distortion terms' if wcs.sip is not None else ''}; lensview treats its pixel "
+            "grid as a linear (TAN) plane, which is accurate only over a small field.",
+            UserWarning, stacklevel=3)
 
 
 def _warn_outside(name, n_out, n_total):

@@ -115,7 +115,7 @@ def _sky_coord(coord, name):
     if not isinstance(coord, SkyCoord):
         raise LensviewInputError(
             f"{name} must be an astropy SkyCoord, for example "
-            "SkyCoord(ra, dec, unit='deg'); got {type(coord).__name__}."
+            f"SkyCoord(ra, dec, unit='deg'); got {type(coord).__name__}."
         )
     return coord
 
@@ -482,6 +482,10 @@ def ab_magnitude(flux, zero_point):
         AB magnitudes.
     """
     zp = _zero_point_value(zero_point)
+    if isinstance(flux, u.Quantity) and flux.unit.physical_type != "dimensionless":
+        raise LensviewInputError(
+            f"A flux in {flux.unit} cannot be combined with an image zero point; give the flux in "
+            "the image's own units, or use ab_magnitude_from_fnu for a flux density.")
     flux = np.asarray(u.Quantity(flux).value, dtype=float)
     with np.errstate(divide="ignore", invalid="ignore"):
         magnitude = np.where(flux > 0, zp - 2.5 * np.log10(np.where(flux > 0, flux, 1.0)), np.nan)

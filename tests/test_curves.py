@@ -218,3 +218,13 @@ def test_source_redshift_in_front_of_lens_is_an_input_error():
     field = field_from(*sie(n, 30.0, 0.7, 0.0, 50, 50), make_wcs(n, n))
     with pytest.raises(LensviewInputError, match="at or below"):
         field.critical_curves(0.3)
+
+
+def test_bad_redshift_text_is_an_input_error_and_cusps_have_sky_positions():
+    n = 200
+    field = field_from(*sie(n, 60.0, 0.7, 0.3, 100.2, 99.7), make_wcs(n, n))
+    with pytest.raises(LensviewInputError):
+        field.critical_curves("two")
+    caustic = field.caustics(2.0)[0]
+    assert len(caustic.cusp_sky) == len(caustic.cusps) == 4
+    assert caustic.cusp_sky.frame.name == "icrs"

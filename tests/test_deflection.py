@@ -91,23 +91,16 @@ def test_sie_det_a_is_one_minus_two_kappa(rotation):
     assert relative.max() < 1e-3
 
 
-def test_second_order_differences_are_not_enough():
-    """The fourth-order + local-interpolant path is what reaches 0.1 % near the curve."""
+def test_magnification_a_tenth_of_a_pixel_from_the_curve():
+    """Plain second-order differences on the grid are off by several per cent here."""
     lens = analytic.IsothermalSphere(CENTRE, theta_e=3.0 * u.arcsec)
     field, wcs = field_for([lens])
     f = field.scaling_factor(2.0)
     theta_eff = 3.0 * f
     coords, r = ring(CENTRE, [theta_eff + 0.1 * SCALE.to_value(u.arcsec)], n=64)
-    x, y = field.sky_to_pixels(coords)
     ours = field.magnification(coords, 2.0)
     expected = r / (r - theta_eff)  # Narayan & Bartelmann 1996
     assert np.abs(ours / expected - 1).max() < 1e-3
-    ax, ay = field.node_deflection(slice(None), slice(None))
-    a12, a11 = np.gradient(ax)
-    a22, a21 = np.gradient(ay)
-    det2 = 1 - f * (a11 + a22) + f * f * (a11 * a22 - a12 * a21)
-    naive = 1 / det2[np.round(y).astype(int), np.round(x).astype(int)]
-    assert np.abs(naive / expected - 1).max() > 0.02
 
 
 def test_redshift_scaling_with_reference_normalisation():

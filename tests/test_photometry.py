@@ -59,7 +59,7 @@ def test_snap_reaches_noiseless_gaussian_centre(rotation_deg):
     snap = ph.snap_to_centroid(image, wcs, click, radius=0.15 * u.arcsec)
     assert snap.moved and snap.reason == ""
     x, y = wcs.world_to_pixel(snap.coord)
-    # Brief requirement: 0.05 pixel; the truth is the injected centre.
+    # Tolerance 0.05 pixel (common practice for click snapping); the truth is the injected centre.
     assert math.hypot(x - x0, y - y0) < 0.05
 
 
@@ -120,7 +120,7 @@ def test_aperture_flux_matches_gaussian_enclosed_fraction(radius_in_sigma):
         annulus=(5.0 * to_arcsec, 6.5 * to_arcsec),
     )
     # Enclosed flux of a circular Gaussian, 1 - exp(-r^2 / 2 sigma^2)
-    # (standard Gaussian integral), to 0.5 per cent as the brief asks.
+    # (standard Gaussian integral), to 0.5 per cent.
     expected = total * (1.0 - math.exp(-0.5 * radius_in_sigma**2))
     assert table["flux"][0] == pytest.approx(expected, rel=5e-3)
     assert table["background"][0] == pytest.approx(sky, rel=1e-6)

@@ -303,7 +303,7 @@ def inputs_panel(state):
     sidebar.subheader("Field and models")
     source = sidebar.radio("Work on", ["Demo field", "My files"], key="lv_source",
                            horizontal=True,
-                           help="The demo is an invented cluster field with two lens models.")
+                           help="The demo is an invented cluster field with three lens models.")
     sidebar.subheader("Lens and cosmology")
     choice = sidebar.radio("Cosmology", [PLANCK, FLAT], key="lv_cosmology", horizontal=True)
     h0, om0 = 70.0, 0.3
