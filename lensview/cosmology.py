@@ -295,7 +295,7 @@ def _redshifts(z, what):
         raise LensviewInputError(f"The {what} is empty; give at least one redshift.")
     if not np.all(np.isfinite(values)):
         raise LensviewInputError(
-            f"The {what} must be finite; got {z!r}. Give a redshift of 0 or more."
+            f"The {what} must be finite; got {z!r}. Give a finite redshift."
         )
     if np.any(values < 0):
         raise LensviewInputError(

@@ -336,6 +336,10 @@ def inputs_panel(state):
                 scene = files_scene(cutout_files, specs, z_lens, key)
     except LensviewInputError as error:
         errors.append(str(error))
+    except (OSError, ValueError) as error:
+        # Not foreseen by the readers; still a message, never a traceback.
+        errors.append(f"These files could not be read: {error}. Check that they are the FITS "
+                      "cutout and deflection maps you meant.")
     if scene is not None:
         state[_SCENE] = scene
     return state.get(_SCENE), errors

@@ -190,7 +190,7 @@ def _load_catalogue(state, scene, append):
         return
     try:
         table = read_candidates(upload, wcs=scene.cutout.wcs)
-    except LensviewInputError as error:
+    except (LensviewInputError, OSError, ValueError) as error:
         state["lv_restore_error"] = str(error)
         return
     page_state.replace_candidates(state, table, append=append)
@@ -206,7 +206,7 @@ def _restore_session(state, scene):
         return
     try:
         session = load_session(upload.getvalue())
-    except LensviewInputError as error:
+    except (LensviewInputError, OSError, ValueError) as error:
         state["lv_restore_error"] = str(error)
         return
     problems = [s for s in check_session_files(session, scene.files) if not s.ok]
