@@ -21,7 +21,7 @@ from dataclasses import dataclass, field as dataclass_field
 
 import numpy as np
 import astropy.units as u
-from astropy.coordinates import CartesianRepresentation, SkyCoord, UnitSphericalRepresentation
+from astropy.coordinates import SkyCoord
 from scipy.sparse import coo_matrix
 from scipy.sparse.csgraph import connected_components, depth_first_order
 from scipy.spatial import cKDTree
@@ -83,16 +83,9 @@ class Curve:
         return np.column_stack([x, y])
 
     def _plane_xy(self):
-        from .geometry import TangentPlane
+        from .geometry import TangentPlane, mean_direction, plane_xy
 
-        plane = TangentPlane(self._centre())
-        x, y = plane.to_plane(self.sky)
-        return np.column_stack([x.to_value(u.arcsec), y.to_value(u.arcsec)])
-
-    def _centre(self):
-        mean = CartesianRepresentation(self.sky.cartesian.xyz.mean(axis=1))
-        direction = mean.represent_as(UnitSphericalRepresentation)
-        return SkyCoord(direction.lon, direction.lat, frame="icrs")
+        return plane_xy(TangentPlane(mean_direction(self.sky)), self.sky)
 
     @property
     def length(self):
@@ -164,7 +157,7 @@ def critical_curves(field, z_source):
     curves, dropped = [], []
     unresolved = _unresolved_nodes(field, tiles)
     for xy, closed in polylines:
-        xy = _refine(field, xy, f)
+        xy = refine_onto_critical(field, xy, f)
         reason = _artefact_reason(xy, unresolved)
         if reason:
             centre = field.pixels_to_sky(*np.nanmean(xy, axis=0))
@@ -301,11 +294,30 @@ def _tiles_beyond_open_ends(field, tiles, polylines):
     return np.array(sorted(extra), dtype=np.int64).reshape(-1, 2)
 
 
-def _refine(field, xy, f):
-    """Newton steps along the gradient of the local interpolant of det A."""
-    xy = xy.copy()
+def refine_onto_critical(field, xy, f, steps=NEWTON_STEPS):
+    """Move points onto the smooth zero set of det A by Newton steps.
+
+    Each step follows the gradient of the local interpolant of det A
+    (`DeflectionField.local_terms`); a point whose step would exceed one
+    pixel, or is undefined, stays where it is.
+
+    Parameters
+    ----------
+    field : `~lensview.DeflectionField`
+    xy : ndarray
+        (N, 2) map pixel positions near a critical curve.
+    f : float
+        Scaling factor for the source redshift.
+    steps : int
+
+    Returns
+    -------
+    ndarray
+        (N, 2) refined positions.
+    """
+    xy = np.array(xy, dtype=float)
     active = np.ones(len(xy), bool)
-    for _ in range(NEWTON_STEPS):
+    for _ in range(steps):
         if not active.any():
             break
         idx = np.nonzero(active)[0]

@@ -19,6 +19,8 @@ from .errors import LensviewInputError
 
 __all__ = [
     "TangentPlane",
+    "mean_direction",
+    "plane_xy",
     "NearestResult",
     "nearest_on_polylines",
     "polyline_length",
@@ -97,6 +99,22 @@ class TangentPlane:
         ra = np.arctan2(p[..., 1], p[..., 0])
         dec = np.arctan2(p[..., 2], np.hypot(p[..., 0], p[..., 1]))
         return SkyCoord(np.mod(ra, 2 * np.pi) * u.rad, dec * u.rad, frame="icrs")
+
+
+def mean_direction(coords):
+    """Mean direction (ICRS) of the finite positions, e.g. a tangent point."""
+    coords = SkyCoord(coords).icrs.reshape(-1)
+    finite = np.isfinite(coords.ra.deg) & np.isfinite(coords.dec.deg)
+    if not finite.any():
+        return SkyCoord(0 * u.deg, 0 * u.deg, frame="icrs")
+    x, y, z = coords[finite].cartesian.xyz.value.mean(axis=1)
+    return SkyCoord(np.arctan2(y, x) * u.rad, np.arctan2(z, np.hypot(x, y)) * u.rad, frame="icrs")
+
+
+def plane_xy(plane, coords):
+    """(N, 2) standard coordinates (arcsec) of sky positions in a `TangentPlane`."""
+    x, y = plane.to_plane(coords)
+    return np.column_stack([np.atleast_1d(x.to_value(u.arcsec)), np.atleast_1d(y.to_value(u.arcsec))])
 
 
 def _arcsec(value):

@@ -19,7 +19,9 @@ from astropy.coordinates import SkyCoord
 from astropy.table import Table
 
 from . import cosmology as _cosmo
-from .geometry import TangentPlane, nearest_on_polylines, point_in_polygon
+from .curves import refine_onto_critical
+from .geometry import (TangentPlane, mean_direction, nearest_on_polylines, plane_xy,
+                       point_in_polygon)
 
 __all__ = ["measure_candidates", "summarize_models"]
 
@@ -108,7 +110,7 @@ def _measure_one_model(coords, field, z_source, cosmology, labels):
 
     curves = field.critical_curves(z_source)
     caustics = field.caustics(z_source)
-    centre = _centre(coords)
+    centre = mean_direction(coords)
     plane = TangentPlane(centre)
     offset = np.full(n, np.nan)
     caustic_offset = np.full(n, np.nan)
@@ -119,8 +121,8 @@ def _measure_one_model(coords, field, z_source, cosmology, labels):
     fold = np.full(n, np.nan)
     cut_short = np.zeros(n, dtype=bool)
     if len(curves):
-        points = _xy(plane, coords)
-        polylines = [_xy(plane, c.sky) for c in curves]
+        points = plane_xy(plane, coords)
+        polylines = [plane_xy(plane, c.sky) for c in curves]
         closed = [c.closed for c in curves]
         nearest = nearest_on_polylines(points, polylines, closed)
         offset = np.asarray(nearest.distance, float)
@@ -142,8 +144,8 @@ def _measure_one_model(coords, field, z_source, cosmology, labels):
         foot = _refine_feet(field, plane, foot, f)
         offset = np.hypot(*(points - foot).T)
         fold = _fold_coefficient(field, plane, foot, f)
-        source_points = _xy(plane, source)
-        caustic_lines = [_xy(plane, c.sky) for c in caustics]
+        source_points = plane_xy(plane, source)
+        caustic_lines = [plane_xy(plane, c.sky) for c in caustics]
         caustic_offset = np.asarray(
             nearest_on_polylines(source_points, caustic_lines, [c.closed for c in caustics]).distance,
             float)
@@ -198,20 +200,6 @@ def _measure_one_model(coords, field, z_source, cosmology, labels):
     return table
 
 
-def _centre(coords):
-    """Mean direction of the finite positions (the tangent point for distances)."""
-    finite = np.isfinite(coords.ra.deg) & np.isfinite(coords.dec.deg)
-    if not finite.any():
-        return SkyCoord(0 * u.deg, 0 * u.deg)
-    x, y, z = coords[finite].cartesian.xyz.value.mean(axis=1)
-    return SkyCoord(np.arctan2(y, x) * u.rad, np.arctan2(z, np.hypot(x, y)) * u.rad, frame="icrs")
-
-
-def _xy(plane, coords):
-    x, y = plane.to_plane(coords)
-    return np.column_stack([np.atleast_1d(x.to_value(u.arcsec)), np.atleast_1d(y.to_value(u.arcsec))])
-
-
 def _refine_feet(field, plane, foot, f, steps=3):
     """Move the nearest polyline points onto the smooth critical curve.
 
@@ -226,16 +214,10 @@ def _refine_feet(field, plane, foot, f, steps=3):
         return foot
     sky = plane.to_sky(foot[good, 0] * u.arcsec, foot[good, 1] * u.arcsec)
     x0, y0 = field.sky_to_pixels(sky)
-    fx, fy = x0.copy(), y0.copy()
-    for _ in range(steps):
-        terms = field.local_terms(fx, fy, second_derivatives=True, warn=False)
-        value = terms.det_a(f)
-        gx, gy = terms.grad_det_a(f)
-        norm2 = gx * gx + gy * gy
-        fx, fy = fx - value * gx / norm2, fy - value * gy / norm2
+    fx, fy = refine_onto_critical(field, np.column_stack([x0, y0]), f, steps).T
     # Keep the polyline foot where the smooth refinement is not trustworthy.
     trusted = np.isfinite(fx) & np.isfinite(fy) & (np.hypot(fx - x0, fy - y0) < 0.5)
-    moved = _xy(plane, field.pixels_to_sky(np.where(trusted, fx, x0), np.where(trusted, fy, y0)))
+    moved = plane_xy(plane, field.pixels_to_sky(np.where(trusted, fx, x0), np.where(trusted, fy, y0)))
     refined = foot.copy()
     refined[good] = np.where(trusted[:, None], moved, foot[good])
     return refined
