@@ -49,7 +49,6 @@ def _add_models(parser):
 
 
 _UNIT_NORMALISATION = "unit"
-_FROM_HEADER = "header"
 
 
 def _normalisation(text):
@@ -91,13 +90,12 @@ def _cosmology(args):
 
 def load_models(args):
     """DeflectionFields from the model options of a parsed command line."""
-    from .deflection import DeflectionField
-    from .fitsio import read_deflection
+    from .deflection import FROM_HEADER, load_model
 
     n = len(args.model)
     names = _per_model(args.model_name, n, None, "--model-name") if args.model_name else [None] * n
     units = _per_model(args.units, n, None, "--units")
-    norms = _per_model(args.z_norm, n, _FROM_HEADER, "--z-norm")
+    norms = _per_model(args.z_norm, n, FROM_HEADER, "--z-norm")
     cosmology = _cosmology(args)
     fields = []
     for k, (spec, name, unit, z_norm) in enumerate(zip(args.model, names, units, norms)):
@@ -105,16 +103,13 @@ def load_models(args):
         if len(paths) not in (1, 2):
             raise LensviewInputError(f"--model {spec!r}: give one file or two files separated by a comma.")
         _progress(f"loading model {k + 1}/{n}: {spec}")
-        maps = read_deflection(*paths, units=unit)
-        if z_norm == _FROM_HEADER:
-            z_norm = maps.header.get("Z_NORM")
-            if z_norm is not None:
-                _progress(f"  maps made for a source at z = {z_norm} (Z_NORM in the header)")
-        elif z_norm == _UNIT_NORMALISATION:
+        if z_norm == _UNIT_NORMALISATION:
             z_norm = None
-        fields.append(DeflectionField(maps.alpha_x, maps.alpha_y, maps.wcs, units=maps.units,
-                                      z_lens=args.z_lens, z_norm=z_norm, cosmology=cosmology,
-                                      name=name or Path(paths[0]).stem))
+        field = load_model(*paths, z_lens=args.z_lens, units=unit, z_norm=z_norm,
+                           cosmology=cosmology, name=name or Path(paths[0]).stem)
+        if field.z_norm is not None:
+            _progress(f"  maps made for a source at z = {field.z_norm}")
+        fields.append(field)
     return fields
 
 

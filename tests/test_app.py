@@ -440,6 +440,10 @@ def test_bad_uploads_show_the_reason_and_keep_the_knots():
     uploader(app, "model_0").set_value(
         [("far.fits", fits_bytes(alpha, far, extra=[(alpha, far)]), "application/fits")])
     run_page(app)
+    # These maps carry no BUNIT: the page asks for the units instead of guessing.
+    assert any("BUNIT" in e.value for e in app.error)
+    app.selectbox(key="lv_units_0").set_value("arcsec")
+    run_page(app)
     assert any("does not cover any part of the cutout" in e.value for e in app.error)
     assert len(app.session_state[page_state.CANDIDATES]) == 1
 

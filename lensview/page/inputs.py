@@ -17,6 +17,7 @@ from pathlib import Path
 
 import streamlit as st
 
+from ..deflection import FROM_HEADER, load_model
 from ..errors import LensviewInputError
 
 __all__ = ["Scene", "HeldFile", "inputs_panel", "demo_scene", "files_scene", "upload_slot",
@@ -27,6 +28,11 @@ _FILES = "lv_files"
 _MAX_MODELS = 8
 PLANCK = "Planck18"
 FLAT = "flat \u039bCDM (H0, \u03a9m)"
+
+_UNIT_CHOICES = {"as the file says (BUNIT)": None, "arcsec": "arcsec", "pixel": "pixel"}
+_NORM_FROM_FILE = "as the file says (Z_NORM, else D_ls/D_s = 1)"
+_NORM_UNIT = "D_ls/D_s = 1"
+_NORM_REFERENCE = "made for a source redshift"
 
 
 @dataclass
@@ -87,11 +93,9 @@ def _cached_cutout(sha256, name, _content):
 
 @st.cache_resource(max_entries=16, show_spinner=False)
 def _cached_field(checksums, names, units, z_lens, z_norm, cosmology_key, model_name, _contents):
-    from ..deflection import DeflectionField
-
     sources = [_named_bytes(n, c) for n, c in zip(names, _contents)]
-    return DeflectionField.from_fits(*sources, units=units, z_lens=z_lens, z_norm=z_norm,
-                                     cosmology=cosmology_from_key(cosmology_key), name=model_name)
+    return load_model(*sources, units=units, z_lens=z_lens, z_norm=z_norm,
+                      cosmology=cosmology_from_key(cosmology_key), name=model_name)
 
 
 @st.cache_resource(max_entries=2, show_spinner=False)
@@ -274,10 +278,12 @@ def files_scene(cutout_files, model_specs, z_lens, cosmology_choice):
         names_seen.add(name)
         checksums = tuple(h.sha256 for h in held)
         names = tuple(h.name for h in held)
-        fields.append(_cached_field(checksums, names, spec["units"], float(z_lens), spec["z_norm"],
-                                    cosmology_choice, name, tuple(h.content for h in held)))
+        field = _cached_field(checksums, names, spec["units"], float(z_lens), spec["z_norm"],
+                              cosmology_choice, name, tuple(h.content for h in held))
+        fields.append(field)
+        # The session records what the files turned out to hold.
         model_inputs.append(ModelInputs(name, tuple(InputFile(h.name, h.sha256) for h in held),
-                                        spec["units"], spec["z_norm"]))
+                                        field.units, field.z_norm))
         files.update({h.name: h.content for h in held})
     if not fields:
         raise LensviewInputError("No lens model is loaded; upload at least one deflection model.")
@@ -371,11 +377,12 @@ def _file_widgets(state):
                 held = held[::-1]
             default_name = _default_model_name(held) or f"model {k + 1}"
             name = st.text_input("Name", value=default_name, key=f"lv_name_{k}_{default_name}")
-            units = st.selectbox("Deflection units", ["arcsec", "pixel"], key=f"lv_units_{k}")
-            norm = st.radio("Normalisation", ["D_ls/D_s = 1", "made for a source redshift"],
+            units = _UNIT_CHOICES[st.selectbox("Deflection units", list(_UNIT_CHOICES),
+                                               key=f"lv_units_{k}")]
+            norm = st.radio("Normalisation", [_NORM_FROM_FILE, _NORM_UNIT, _NORM_REFERENCE],
                             key=f"lv_norm_{k}")
-            z_norm = None
-            if norm != "D_ls/D_s = 1":
+            z_norm = FROM_HEADER if norm == _NORM_FROM_FILE else None
+            if norm == _NORM_REFERENCE:
                 z_norm = float(st.number_input("Reference source redshift", 0.02, 20.0, 2.0, 0.01,
                                                key=f"lv_znorm_{k}"))
         specs.append(dict(name=name, files=held, units=units, z_norm=z_norm))
