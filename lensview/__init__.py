@@ -11,6 +11,7 @@ __version__ = "0.1.0"
 
 _EXPORTS = {
     "DeflectionField": "deflection",
+    "load_model": "deflection",
     "Curve": "curves",
     "CurveSet": "curves",
     "LensviewInputError": "errors",
