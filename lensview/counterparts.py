@@ -377,18 +377,19 @@ def _fold_partner_seeds(field, f, roots):
     """Mirror of each root across a nearby critical curve, along the critical eigendirection.
 
     In the fold normal form the two merging images sit symmetrically about the
-    curve along the eigenvector of A whose eigenvalue vanishes there
+    curve along the direction that A maps to zero there
     (Blandford & Narayan 1986); a linear estimate of det A along that
     direction locates the curve.
     """
     terms = field.local_terms(roots[:, 0], roots[:, 1], second_derivatives=True, warn=False)
     det_a = terms.det_a(f)
     gx, gy = terms.grad_det_a(f)
-    sym = np.stack([[1 - f * terms.a11, -0.5 * f * (terms.a12 + terms.a21)],
-                    [-0.5 * f * (terms.a12 + terms.a21), 1 - f * terms.a22]]).transpose(2, 0, 1)
-    values, vectors = np.linalg.eigh(np.nan_to_num(sym))
-    smallest = np.argmin(np.abs(values), axis=1)
-    direction = vectors[np.arange(len(roots)), :, smallest]
+    # The null direction of A itself (A v = 0 on the curve) does not depend on the frame,
+    # so it can be taken on the map's pixel grid even when pixels are not square.
+    jacobian = np.stack([[1 - f * terms.a11, -f * terms.a12],
+                         [-f * terms.a21, 1 - f * terms.a22]]).transpose(2, 0, 1)
+    _, _, right = np.linalg.svd(np.nan_to_num(jacobian))
+    direction = right[:, -1, :]
     with np.errstate(divide="ignore", invalid="ignore"):
         reach = -det_a / (gx * direction[:, 0] + gy * direction[:, 1])
     near = np.isfinite(reach) & (np.abs(reach) < _FOLD_SEED_REACH)
