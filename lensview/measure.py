@@ -76,10 +76,18 @@ def measure_candidates(coords, fields, z_source, *, cosmology=None, labels=None)
         z_source=float(z_source),
         models=[f.name for f in fields],
         z_lens={f.name: f.z_lens for f in fields},
-        cosmology=_cosmo.resolve_cosmology(cosmology or fields[0].cosmology).name
-        if fields else None,
+        cosmology=_cosmology_record(fields, cosmology),
     )
     return table
+
+
+def _cosmology_record(fields, cosmology):
+    """The cosmology used: one name, or one per model when the models differ."""
+    used = {f.name: _cosmo.resolve_cosmology(cosmology or f.cosmology) for f in fields}
+    distinct = {repr(c) for c in used.values()}
+    if len(distinct) == 1:
+        return next(iter(used.values())).name
+    return {name: c.name or repr(c) for name, c in used.items()}
 
 
 def _labels(labels, n):

@@ -179,3 +179,18 @@ def test_no_model_is_an_input_error(sie_case):
 
     with pytest.raises(LensviewInputError, match="No lens model"):
         lv.measure_candidates(sie_case[0].pixels_to_sky(np.array([10.0]), np.array([10.0])), [], 2.0)
+
+
+def test_metadata_records_each_models_cosmology_when_they_differ():
+    n = 100
+    x, y = grid(n, 50, 50)
+    r = np.hypot(x, y)
+    r[r == 0] = 1
+    wcs = make_wcs(n, n)
+    planck = lv.DeflectionField(30 * x / r, 30 * y / r, wcs, units="pixel", z_lens=Z_LENS, name="p")
+    eds = lv.DeflectionField(30 * x / r, 30 * y / r, wcs, units="pixel", z_lens=Z_LENS, name="e",
+                             cosmology=EDS)
+    coords = wcs.pixel_to_world([70.0], [50.0])
+    assert lv.measure_candidates(coords, [planck], 2.0).meta["cosmology"] == "Planck18"
+    mixed = lv.measure_candidates(coords, [planck, eds], 2.0).meta["cosmology"]
+    assert mixed["p"] == "Planck18" and "Om0=1.0" in mixed["e"]
