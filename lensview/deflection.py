@@ -344,8 +344,15 @@ class DeflectionField:
                 terms[key] = val.reshape(shape)
         return LocalTerms(self._frame, **terms)
 
-    def lens_quantities(self, coords, z_source):
+    def lens_quantities(self, coords, z_source, *, warn=True):
         """All local lensing quantities at sky positions.
+
+        Parameters
+        ----------
+        coords : `~astropy.coordinates.SkyCoord`
+        z_source : float
+        warn : bool
+            Warn when positions lie outside the map.
 
         Returns
         -------
@@ -356,7 +363,7 @@ class DeflectionField:
         """
         f = self.scaling_factor(z_source)
         x, y = self.sky_to_pixels(coords)
-        terms = self.local_terms(x, y)
+        terms = self.local_terms(x, y, warn=warn)
         det_a = terms.det_a(f)
         lambda_t, lambda_r = terms.eigenvalues(f)
         with np.errstate(divide="ignore", invalid="ignore"):

@@ -107,14 +107,9 @@ def _measure_one_model(coords, field, z_source, cosmology, labels):
     cosmo = _cosmo.resolve_cosmology(cosmology or field.cosmology)
     f = field.scaling_factor(z_source)
     n = len(coords)
-    x, y = field.sky_to_pixels(coords)
-    terms = field.local_terms(x, y, warn=False)
-    det_a = terms.det_a(f)
-    lambda_t, lambda_r = terms.eigenvalues(f)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        mu = 1.0 / det_a
+    local = field.lens_quantities(coords, z_source, warn=False)
+    det_a, mu, source = local["det_a"], local["mu"], local["source"]
     defined = np.isfinite(det_a)
-    source = field.pixels_to_sky(x - f * terms.ax, y - f * terms.ay)
 
     curves = field.critical_curves(z_source)
     caustics = field.caustics(z_source)
@@ -192,10 +187,8 @@ def _measure_one_model(coords, field, z_source, cosmology, labels):
     table["mu"] = mu
     table["abs_mu"] = np.abs(mu)
     table["parity"] = parity
-    table["kappa"] = terms.convergence(f)
-    table["gamma"] = np.hypot(*terms.shear(f))
-    table["lambda_t"] = lambda_t
-    table["lambda_r"] = lambda_r
+    for name in ("kappa", "gamma", "lambda_t", "lambda_r"):
+        table[name] = local[name]
     table["fold_coefficient_arcsec"] = fold * u.arcsec
     table["fold_mu"] = fold_mu
     table["source_ra"] = source.ra.deg * u.deg
