@@ -15,6 +15,7 @@ from scipy.optimize import root
 
 import lensview as lv
 from lensview import counterparts
+from lensview.counterparts import images as counterimage_search
 from lensview.cosmology import distance_ratio
 from lensview.errors import LensviewInputError
 
@@ -262,12 +263,12 @@ def test_block_preselection_keeps_every_triangle(sie_field):
     sources = [fold_pair(lens_f, phi, 0.2)[2] for phi in (0.3, 1.7, 3.3)]
     sources += list(trace(lens_f, rng.uniform(60, 340, (3, 2))))
     for beta in sources:
-        blocked = counterparts._triangle_seeds(field, F, beta)
+        blocked = counterimage_search._triangle_seeds(field, F, beta)
         corners = [beta_grid[:-1, :-1], beta_grid[:-1, 1:], beta_grid[1:, 1:], beta_grid[1:, :-1]]
         full = 0
         for second, third in ((1, 2), (2, 3)):
             p0, p1, p2 = corners[0], corners[second], corners[third]
-            full += counterparts._barycentric(np.moveaxis(p0, -1, 0), np.moveaxis(p1, -1, 0),
+            full += counterimage_search._barycentric(np.moveaxis(p0, -1, 0), np.moveaxis(p1, -1, 0),
                                               np.moveaxis(p2, -1, 0), beta)[2].sum()
         assert len(blocked) == full
         assert full >= 1

@@ -46,7 +46,7 @@ def test_bundled_files_stay_small():
 
 
 def test_every_layout_loads_through_fitsio_with_a_celestial_wcs():
-    grids = {g.name: g for g in demo._GRIDS}
+    grids = {g.name: g for g in demo.GRIDS}
     two = grids["isothermal"]
     maps = read_deflection(*(DIRECTORY / f for f in two.files), units=None)
     assert maps.units == "arcsec" and maps.wcs.has_celestial
@@ -123,7 +123,7 @@ def test_reduced_variant_regenerates_bit_for_bit(tmp_path):
     # The seed drives the noise and field galaxies only; the models do not depend on it.
     changed = {p.name for p, q in zip(first, other) if not filecmp.cmp(p, q, shallow=False)}
     assert demo.CUTOUT_FILE in changed
-    assert not changed & {name for g in demo._GRIDS for name in g.files}
+    assert not changed & {name for g in demo.GRIDS for name in g.files}
     cutout, fields, candidates = demo.load_demo(tmp_path / "a")
     assert cutout.data.shape == (180, 180) and len(fields) == 3 and len(candidates) == 9
 
