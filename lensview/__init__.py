@@ -10,25 +10,27 @@ from importlib import import_module
 __version__ = "0.1.0"
 
 _EXPORTS = {
-    "DeflectionField": "deflection",
-    "load_model": "deflection",
-    "Curve": "curves",
-    "CurveSet": "curves",
+    "DeflectionField": "lens",
+    "load_model": "lens",
+    "Curve": "lens",
+    "CurveSet": "lens",
     "LensviewInputError": "errors",
     "OutsideFootprintWarning": "errors",
-    "read_cutout": "fitsio",
-    "read_deflection": "fitsio",
+    "read_cutout": "io",
+    "read_deflection": "io",
     "measure_candidates": "measure",
     "summarize_models": "measure",
     "pair_counterparts": "counterparts",
     "predict_counterimages": "counterparts",
     "source_plane_image": "counterparts",
     "measure_ensemble": "ensemble",
-    "write_regions": "export",
-    "read_candidates": "export",
-    "write_table": "export",
-    "save_session": "export",
-    "load_session": "export",
+    "write_regions": "io",
+    "read_candidates": "io",
+    "write_table": "io",
+    "save_session": "io",
+    "load_session": "io",
+    "read_table": "io",
+    "vertex_table": "io",
 }
 
 __all__ = sorted(_EXPORTS) + ["__version__"]

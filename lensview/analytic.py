@@ -30,6 +30,7 @@ from astropy import constants as const
 from astropy.coordinates import SkyCoord
 from astropy.wcs import WCS
 
+from .checks import finite_number
 from .errors import LensviewInputError
 
 __all__ = [
@@ -84,14 +85,6 @@ def _position_angle(value, name="pa"):
             f"got {value!r}.") from error
 
 
-def _number(value, name, low=None):
-    try:
-        number = float(value)
-    except (TypeError, ValueError) as error:
-        raise LensviewInputError(f"{name} must be a number; got {value!r}.") from error
-    if not np.isfinite(number) or (low is not None and number <= low):
-        raise LensviewInputError(f"{name} must be a finite number above {low}; got {value!r}.")
-    return number
 
 
 def _offsets(x, y):
@@ -320,7 +313,7 @@ class IsothermalEllipsoid(_Profile):
     def __init__(self, center, theta_e, q, pa, core=0 * u.arcsec):
         self.center = _center(center)
         self.theta_e = _arcsec(theta_e, "theta_e", positive=True)
-        q = _number(q, "The axis ratio q", low=0.0)
+        q = finite_number(q, "The axis ratio q", low=0.0)
         if q > 1:
             raise LensviewInputError(
                 f"The axis ratio q = minor/major must be in (0, 1]; got {q}. Use 1/q and turn "
@@ -392,7 +385,7 @@ class NFW(_Profile):
 
     def __init__(self, center, kappa_s, r_s):
         self.center = _center(center)
-        self.kappa_s = _number(kappa_s, "kappa_s", low=0.0)
+        self.kappa_s = finite_number(kappa_s, "kappa_s", low=0.0)
         self.r_s = _arcsec(r_s, "r_s", positive=True)
 
     @staticmethod
@@ -463,7 +456,7 @@ class ExternalShear(_Profile):
 
     def __init__(self, gamma, pa, center):
         self.center = _center(center)
-        self.gamma = _number(gamma, "gamma")
+        self.gamma = finite_number(gamma, "gamma")
         self.pa = _position_angle(pa)
 
     def _deflection(self, x, y):
@@ -760,6 +753,6 @@ def magnification_map(profiles, wcs, shape, scaling=1.0):
         Negative where the image parity is odd.
     """
     a11, a12, a21, a22 = _on_grid(profiles, wcs, shape, lambda p, x, y: p.jacobian(x, y), 4)
-    f = _number(scaling, "scaling", low=0.0)
+    f = finite_number(scaling, "scaling", low=0.0)
     with np.errstate(divide="ignore", invalid="ignore"):
         return 1.0 / ((1 - f * a11) * (1 - f * a22) - f * f * a12 * a21)

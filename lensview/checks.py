@@ -44,8 +44,9 @@ OM0_RANGE = (0.0, 1.0)
 # ---------------------------------------------------------------------------- redshifts
 
 
-def redshifts(z, what):
-    """Redshift(s) as a float array, checked to be finite and non-negative."""
+def redshifts(z, what, *, positive=False):
+    """Redshift(s) as a float array, checked to be finite and non-negative
+    (above zero with ``positive``)."""
     if isinstance(z, u.Quantity):
         try:
             z = z.to_value(u.one, equivalencies=cu.dimensionless_redshift())
@@ -61,15 +62,17 @@ def redshifts(z, what):
         raise LensviewInputError(f"The {what} is empty; give at least one redshift.")
     if not np.all(np.isfinite(values)):
         raise LensviewInputError(f"The {what} must be finite; got {z!r}. Give a finite redshift.")
+    if positive and np.any(values <= 0):
+        raise LensviewInputError(f"The {what} must be a positive number; got {z!r}.")
     if np.any(values < 0):
         raise LensviewInputError(
             f"The {what} must not be negative; got {z!r}. Give a redshift of 0 or more.")
     return values
 
 
-def redshift(z, what):
+def redshift(z, what, *, positive=False):
     """One redshift as a float, checked like `redshifts`."""
-    values = redshifts(z, what)
+    values = redshifts(z, what, positive=positive)
     if values.ndim != 0 and values.size != 1:
         raise LensviewInputError(f"The {what} must be a single number; got {values.size} values.")
     return float(values.reshape(()))
@@ -77,10 +80,7 @@ def redshift(z, what):
 
 def positive_redshift(z, what):
     """One redshift above zero (a lens or a normalisation redshift)."""
-    value = redshift(z, what)
-    if value <= 0:
-        raise LensviewInputError(f"The {what} must be above 0; got {z!r}.")
-    return value
+    return redshift(z, what, positive=True)
 
 
 def require_behind(z_lens, z_behind, what):

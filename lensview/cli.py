@@ -20,6 +20,7 @@ import astropy.units as u
 import numpy as np
 from astropy.coordinates import SkyCoord
 
+from .checks import H0_RANGE, OM0_RANGE, flat_cosmology
 from .errors import LensviewInputError
 
 __all__ = ["main", "build_parser"]
@@ -43,9 +44,11 @@ def _add_models(parser):
     group.add_argument("--z-lens", type=float, required=True, help="lens redshift")
     group.add_argument("--z-source", type=float, required=True, help="source redshift")
     group.add_argument("--h0", type=float, default=None,
-                       help="Hubble constant (km/s/Mpc) for a flat LCDM cosmology; default Planck18")
+                       help=f"Hubble constant (km/s/Mpc, {H0_RANGE[0]:g} to {H0_RANGE[1]:g}) for a flat LCDM "
+                            "cosmology; default Planck18")
     group.add_argument("--om0", type=float, default=None,
-                       help="matter density for a flat LCDM cosmology (with --h0)")
+                       help=f"matter density (above {OM0_RANGE[0]:g}, at most {OM0_RANGE[1]:g}) for a flat "
+                            "LCDM cosmology (with --h0)")
 
 
 _UNIT_NORMALISATION = "unit"
@@ -75,22 +78,12 @@ def _per_model(values, n, default, label):
 
 
 def _cosmology(args):
-    if args.h0 is None and args.om0 is None:
-        return None
-    from astropy.cosmology import FlatLambdaCDM
-
-    if args.h0 is None or args.om0 is None:
-        raise LensviewInputError("Give both --h0 and --om0 for a flat LCDM cosmology, or neither for Planck18.")
-    if not (np.isfinite(args.h0) and args.h0 > 0):
-        raise LensviewInputError(f"--h0 {args.h0} is not a Hubble constant; give a positive value in km/s/Mpc.")
-    if not (np.isfinite(args.om0) and 0 < args.om0 <= 1):
-        raise LensviewInputError(f"--om0 {args.om0} is not a matter density; give a value in (0, 1].")
-    return FlatLambdaCDM(H0=args.h0, Om0=args.om0)
+    return flat_cosmology(args.h0, args.om0)
 
 
 def load_models(args):
     """DeflectionFields from the model options of a parsed command line."""
-    from .deflection import FROM_HEADER, load_model
+    from .lens.loading import FROM_HEADER, load_model
 
     n = len(args.model)
     names = _per_model(args.model_name, n, None, "--model-name") if args.model_name else [None] * n
@@ -118,7 +111,7 @@ def _progress(message):
 
 
 def _candidates(path, cutout_wcs=None):
-    from .export import read_candidates
+    from .io import read_candidates
 
     table = read_candidates(path, wcs=cutout_wcs)
     if len(table) == 0:
@@ -129,8 +122,8 @@ def _candidates(path, cutout_wcs=None):
 
 # ---------------------------------------------------------------------------- commands
 def cmd_curves(args):
-    from .export import write_regions
-    from .fitsio import read_cutout
+    from .io import write_regions
+    from .io.fits import read_cutout
 
     fields = load_models(args)
     curves = []
@@ -147,7 +140,7 @@ def cmd_curves(args):
 
 
 def cmd_measure(args):
-    from .export import write_table
+    from .io import write_table
     from .measure import measure_candidates, summarize_models
 
     if args.aperture is not None and not args.cutout:
@@ -158,7 +151,7 @@ def cmd_measure(args):
         raise LensviewInputError("--zero-point is used only with --aperture photometry; add --aperture.")
     cutout = None
     if args.cutout:
-        from .fitsio import read_cutout
+        from .io.fits import read_cutout
 
         cutout = read_cutout(args.cutout)
     coords, labels, _ = _candidates(args.candidates, cutout.wcs if cutout else None)
@@ -205,7 +198,7 @@ def _add_photometry(table, coords, cutout, args):
 
 def cmd_images(args):
     from .counterparts import predict_counterimages
-    from .export import write_table
+    from .io import write_table
 
     fields = load_models(args)
     coord = SkyCoord(args.ra * u.deg, args.dec * u.deg)
@@ -225,7 +218,7 @@ def cmd_images(args):
 
 def cmd_pair(args):
     from .counterparts import pair_counterparts
-    from .export import write_table
+    from .io import write_table
 
     coords, labels, _ = _candidates(args.candidates)
     fields = load_models(args)
@@ -237,7 +230,7 @@ def cmd_pair(args):
 
 def cmd_figure(args):
     from .figures import render_field_figure, save_figure
-    from .fitsio import read_cutout
+    from .io.fits import read_cutout
 
     cutout = read_cutout(args.cutout)
     fields = load_models(args)
@@ -256,7 +249,7 @@ def cmd_figure(args):
 
 
 def cmd_session(args):
-    from .export import check_session_files, load_session
+    from .io import check_session_files, load_session
 
     session = load_session(args.session)
     supplied = {Path(p).name: p for p in args.files}
@@ -266,7 +259,7 @@ def cmd_session(args):
     print(f"{len(session.candidates)} candidate(s); z_lens = {session.z_lens}, "
           f"z_source = {session.z_source}")
     if args.candidates_out:
-        from .export import write_table
+        from .io import write_table
 
         write_table(session.candidate_table(), args.candidates_out)
         print(f"wrote the candidates to {args.candidates_out}")

@@ -15,9 +15,9 @@ never a zero.
 
 import numpy as np
 import astropy.units as u
-import astropy.cosmology.units as cu
 from astropy.cosmology import Cosmology, Planck18
 
+from .checks import length_unit, redshift, redshifts, require_behind
 from .errors import LensviewInputError
 
 __all__ = [
@@ -77,7 +77,7 @@ def angular_diameter_distance(z, cosmology=None):
     `~astropy.units.Quantity`
         D_A in Mpc, of the shape of ``z``.
     """
-    z = _redshifts(z, "redshift")
+    z = redshifts(z, "redshift")
     return resolve_cosmology(cosmology).angular_diameter_distance(z).to(u.Mpc)
 
 
@@ -96,8 +96,8 @@ def angular_diameter_distance_between(z1, z2, cosmology=None):
     `~astropy.units.Quantity`
         D_A(z1, z2) in Mpc (Hogg 1999, eq. 19 for a flat universe).
     """
-    z1 = _redshifts(z1, "first redshift")
-    z2 = _redshifts(z2, "second redshift")
+    z1 = redshifts(z1, "first redshift")
+    z2 = redshifts(z2, "second redshift")
     if np.any(z2 < z1):
         raise LensviewInputError(
             f"The second redshift ({z2}) must not be below the first ({z1}); give the "
@@ -128,9 +128,9 @@ def distance_ratio(z_lens, z_source, cosmology=None):
         For a redshift that is negative, NaN or not a number, or a source at
         or in front of the lens.
     """
-    z_lens = _redshift(z_lens, "lens redshift")
-    z_source = _redshift(z_source, "source redshift")
-    _require_behind(z_lens, z_source, "source redshift")
+    z_lens = redshift(z_lens, "lens redshift")
+    z_source = redshift(z_source, "source redshift")
+    require_behind(z_lens, z_source, "source redshift")
     cosmo = resolve_cosmology(cosmology)
     d_ls = cosmo.angular_diameter_distance_z1z2(z_lens, z_source)
     d_s = cosmo.angular_diameter_distance(z_source)
@@ -159,8 +159,8 @@ def scaling_factor(z_lens, z_source, z_norm=None, cosmology=None):
     ratio = distance_ratio(z_lens, z_source, cosmology)
     if z_norm is None:
         return ratio
-    z_norm = _redshift(z_norm, "normalisation redshift")
-    _require_behind(_redshift(z_lens, "lens redshift"), z_norm, "normalisation redshift")
+    z_norm = redshift(z_norm, "normalisation redshift")
+    require_behind(redshift(z_lens, "lens redshift"), z_norm, "normalisation redshift")
     return ratio / distance_ratio(z_lens, z_norm, cosmology)
 
 
@@ -181,7 +181,7 @@ def angular_scale(z, cosmology=None, unit=u.pc):
     `~astropy.units.Quantity`
         ``D_A(z) * (1 arcsec in radians)`` in ``unit / arcsec``.
     """
-    unit = _length_unit(unit)
+    unit = length_unit(unit)
     distance = angular_diameter_distance(z, cosmology)
     return (distance * (1 * u.arcsec).to_value(u.rad)).to(unit) / u.arcsec
 
@@ -210,7 +210,7 @@ def physical_size(angle, z, cosmology=None, unit=u.pc):
             f"The angle must be an astropy Quantity with an angular unit; got "
             f"{angle!r}. Multiply by astropy.units.arcsec, e.g. 0.05 * u.arcsec."
         )
-    unit = _length_unit(unit)
+    unit = length_unit(unit)
     return (angle.to_value(u.rad) * angular_diameter_distance(z, cosmology)).to(unit)
 
 
@@ -229,7 +229,7 @@ def distance_modulus(z, cosmology=None):
     `~astropy.units.Quantity`
         DM in mag.
     """
-    z = _redshifts(z, "redshift")
+    z = redshifts(z, "redshift")
     if np.any(z <= 0):
         raise LensviewInputError(
             f"A distance modulus needs a redshift above 0; got {z}. Give the "
@@ -271,65 +271,6 @@ def absolute_ab_magnitude(m_ab, z, cosmology=None):
         raise LensviewInputError(
             f"The apparent AB magnitude must be a number; got {m_ab!r}."
         ) from None
-    z = _redshifts(z, "redshift")
+    z = redshifts(z, "redshift")
     dm = distance_modulus(z, cosmology).value
     return (m_ab - dm + 2.5 * np.log10(1.0 + z)) * u.mag
-
-
-def _redshifts(z, what):
-    """Redshift(s) as a float array, checked to be finite and non-negative."""
-    if isinstance(z, u.Quantity):
-        try:
-            z = z.to_value(u.one, equivalencies=cu.dimensionless_redshift())
-        except u.UnitConversionError:
-            raise LensviewInputError(
-                f"The {what} must be dimensionless; got {z}."
-            ) from None
-    if z is None or isinstance(z, (str, bytes, bool, np.bool_)):
-        raise LensviewInputError(f"The {what} must be a number; got {z!r}.")
-    try:
-        values = np.asarray(z, dtype=float)
-    except (TypeError, ValueError):
-        raise LensviewInputError(f"The {what} must be a number; got {z!r}.") from None
-    if values.size == 0:
-        raise LensviewInputError(f"The {what} is empty; give at least one redshift.")
-    if not np.all(np.isfinite(values)):
-        raise LensviewInputError(
-            f"The {what} must be finite; got {z!r}. Give a finite redshift."
-        )
-    if np.any(values < 0):
-        raise LensviewInputError(
-            f"The {what} must not be negative; got {z!r}. Give a redshift of 0 or more."
-        )
-    return values
-
-
-def _redshift(z, what):
-    values = _redshifts(z, what)
-    if values.ndim != 0 and values.size != 1:
-        raise LensviewInputError(
-            f"The {what} must be a single number; got {values.size} values."
-        )
-    return float(values.reshape(()))
-
-
-def _require_behind(z_lens, z_behind, what):
-    if z_behind <= z_lens:
-        raise LensviewInputError(
-            f"The {what} {z_behind:g} is at or below the lens redshift {z_lens:g}: "
-            f"no lensing happens there. Choose a {what} above {z_lens:g}."
-        )
-
-
-def _length_unit(unit):
-    try:
-        unit = u.Unit(unit)
-    except (TypeError, ValueError):
-        raise LensviewInputError(
-            f"{unit!r} is not a unit; give a length unit such as 'pc', 'lyr' or 'kpc'."
-        ) from None
-    if not unit.is_equivalent(u.m):
-        raise LensviewInputError(
-            f"{unit} is not a length unit; give one such as 'pc', 'lyr' or 'kpc'."
-        )
-    return unit

@@ -141,7 +141,7 @@ def render_field_figure(data, wcs, *, curves=(), candidates=None, pairs=None, co
         2-D cutout.
     wcs : `~astropy.wcs.WCS`
         Its celestial WCS.
-    curves : sequence of `~lensview.curves.Curve`
+    curves : sequence of `~lensview.lens.curves.Curve`
         Critical curves (and optionally caustics) of one or more models.
     candidates : `~astropy.table.Table` or `~astropy.coordinates.SkyCoord`, optional
         Table with ``ra``, ``dec`` (and ``label``); labels default to K1, K2...
@@ -169,7 +169,7 @@ def render_field_figure(data, wcs, *, curves=(), candidates=None, pairs=None, co
     colours = _draw_curves(ax, wcs, curves)
     candidate_table = None
     if candidates is not None:
-        from .export import as_candidate_table
+        from .io import as_candidate_table
 
         candidate_table = as_candidate_table(candidates)
         xy = _table_pixels(candidate_table, wcs)
@@ -199,7 +199,7 @@ def render_source_plane_figure(image, wcs, caustics, traced_candidates=None, *, 
         where nothing lands).
     wcs : `~astropy.wcs.WCS`
         Its WCS.
-    caustics : sequence of `~lensview.curves.Curve`
+    caustics : sequence of `~lensview.lens.curves.Curve`
         Caustics (``plane="source"``) of one or more models.
     traced_candidates : `~astropy.table.Table` or `~astropy.coordinates.SkyCoord`, optional
         Ray-traced candidate positions with ``ra``, ``dec`` and ``label``.
@@ -217,7 +217,7 @@ def render_source_plane_figure(image, wcs, caustics, traced_candidates=None, *, 
     colours = _draw_curves(ax, wcs, caustics)
     has_points = traced_candidates is not None
     if has_points:
-        from .export import as_candidate_table
+        from .io import as_candidate_table
 
         table = as_candidate_table(traced_candidates)
         _draw_points(ax, _table_pixels(table, wcs), table["label"])
@@ -289,9 +289,9 @@ def _image_axes(data, wcs, stretch, limits, cmap):
 
 
 def _draw_curves(ax, wcs, curves):
-    from .export import _curve_list
+    from .io.regions import curve_list
 
-    curves = _curve_list(curves)
+    curves = curve_list(curves)
     colours = model_colours(str(c.model) for c in curves)
     for curve in curves:
         xy = curve.to_pixels(wcs)

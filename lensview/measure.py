@@ -19,7 +19,8 @@ from astropy.coordinates import SkyCoord
 from astropy.table import Table
 
 from . import cosmology as _cosmo
-from .curves import refine_onto_critical
+from .errors import LensviewInputError
+from .lens.curves import refine_onto_critical
 from .geometry import (TangentPlane, mean_direction, nearest_on_polylines, plane_xy,
                        point_in_polygon)
 
@@ -66,8 +67,6 @@ def measure_candidates(coords, fields, z_source, *, cosmology=None, labels=None)
     if not isinstance(fields, (list, tuple)):
         fields = [fields]
     if not fields:
-        from .errors import LensviewInputError
-
         raise LensviewInputError("No lens model was given; supply at least one DeflectionField.")
     labels = _labels(labels, len(coords))
     rows = [_measure_one_model(coords, field, z_source, cosmology, labels) for field in fields]
@@ -95,8 +94,6 @@ def _labels(labels, n):
         return [f"K{i + 1}" for i in range(n)]
     labels = [str(label) for label in labels]
     if len(labels) != n:
-        from .errors import LensviewInputError
-
         raise LensviewInputError(
             f"{len(labels)} labels were given for {n} candidates; give one label per candidate."
         )

@@ -10,7 +10,7 @@ from astropy.coordinates import SkyCoord
 from astropy.io import fits
 from astropy.wcs import WCS
 
-from lensview.fitsio import Cutout
+from lensview.io.fits import Cutout
 from lensview.page import state as page_state
 from lensview.page.picture import render_base_layer
 from lensview.page.viewport import Viewport, click_display_position
@@ -298,7 +298,7 @@ def test_downloads_are_produced_and_read_back():
     from astropy.table import Table
     from regions import PointPixelRegion, Regions
 
-    from lensview.export import load_session
+    from lensview.io import load_session
     from lensview.page.takeaway import DOWNLOADS
 
     app = run_page()

@@ -127,7 +127,7 @@ def test_curves_with_candidates_to_fits_region_table(files, tmp_path):
 
 
 def test_session_check_names_the_file_that_differs(files, tmp_path, capsys):
-    from lensview.export import InputFile, ModelInputs, save_session
+    from lensview.io import InputFile, ModelInputs, save_session
 
     tmp, _, coords = files
     cutout = InputFile.from_content("cutout.fits", tmp / "cutout.fits")

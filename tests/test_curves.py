@@ -6,7 +6,7 @@ import astropy.units as u
 from scipy.optimize import brentq
 
 import lensview as lv
-from lensview import deflection
+from lensview.lens import field as deflection_field
 from lensview.cosmology import distance_ratio
 from lensview.errors import LensviewInputError
 
@@ -202,7 +202,7 @@ def test_hierarchical_search_finds_the_same_curves(monkeypatch):
     wcs = make_wcs(n, n)
     full = field_from(ax, ay, wcs)
     full_curves = full.critical_curves(2.0)
-    monkeypatch.setattr(deflection, "HIERARCHY_THRESHOLD", 256)
+    monkeypatch.setattr(deflection_field, "HIERARCHY_THRESHOLD", 256)
     coarse = field_from(ax, ay, wcs)
     coarse_curves = coarse.critical_curves(2.0)
     assert coarse.tiles.slot.max() + 1 < 0.6 * coarse.tiles.slot.size

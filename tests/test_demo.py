@@ -12,7 +12,7 @@ import lensview as lv
 from lensview import demo
 from lensview.cosmology import distance_ratio
 from lensview.errors import LensviewInputError
-from lensview.fitsio import read_cutout, read_deflection
+from lensview.io.fits import read_cutout, read_deflection
 from lensview.geometry import TangentPlane
 
 DIRECTORY = demo.DEMO_DIRECTORY

@@ -14,9 +14,9 @@ from astropy.wcs import WCS
 from regions import PointPixelRegion, PolygonPixelRegion, Regions
 
 import lensview
-from lensview.curves import Curve
+from lensview.lens.curves import Curve
 from lensview.errors import LensviewInputError
-from lensview.export import (Candidate, FileStatus, InputFile, ModelInputs, Session, check_session_files,
+from lensview.io import (Candidate, FileStatus, InputFile, ModelInputs, Session, check_session_files,
                              load_session, read_candidates, read_table, save_session, vertex_table,
                              write_regions, write_table)
 
@@ -321,7 +321,7 @@ def session(inputs, candidates):
 
 
 def test_session_restores_an_identical_candidate_table(tmp_path, session, candidates):
-    from lensview.export import as_candidate_table
+    from lensview.io import as_candidate_table
 
     path = tmp_path / "session.json"
     text = save_session(path, session)

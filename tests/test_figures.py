@@ -12,7 +12,7 @@ from astropy.visualization import AsinhStretch, PercentileInterval, SqrtStretch,
 from matplotlib.colors import to_rgb
 from matplotlib.image import imread
 
-from lensview.curves import Curve
+from lensview.lens.curves import Curve
 from lensview.errors import LensviewInputError
 from lensview.figures import (LENSVIEW_PALETTE, display_norm, render_field_figure,
                               render_source_plane_figure, save_figure)

@@ -9,7 +9,7 @@ from astropy.io import fits
 from astropy.wcs import WCS
 
 from lensview.errors import LensviewInputError
-from lensview.fitsio import (
+from lensview.io.fits import (
     Cutout,
     DeflectionMaps,
     read_cutout,

@@ -26,7 +26,7 @@ from astropy.coordinates import SkyCoord
 from astropy.table import Table
 
 from ..checks import positive_angle
-from ..deflection import TILE
+from ..lens.stencils import TILE
 from ..errors import LensviewInputError
 
 #: Cells per side of the blocks used to pre-select where images can be.

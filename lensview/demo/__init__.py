@@ -10,7 +10,7 @@ The scenario
     z = 2.9 into a giant arc that crosses the tangential critical curve at a
     fold. Three deliberately different lens models of the cluster are written
     as deflection maps, each on its own grid, pixel scale and rotated WCS, one
-    in each file layout that `lensview.fitsio` reads:
+    in each file layout that `lensview.io.fits` reads:
 
     * ``isothermal`` (the truth): a cored isothermal ellipsoid halo plus
       cored isothermal member galaxies; two files, normalised to
@@ -40,7 +40,7 @@ Modules: `scenario` (the invented numbers), `maps` (lens models on disk),
 
 `generate_demo` writes the files deterministically: the same seed gives the
 same bytes (no dates or checksums in the headers). `load_demo` reads them
-back through `lensview.fitsio` and `lensview.export`.
+back through `lensview.io.fits` and `lensview.io`.
 """
 
 from .generate import generate_demo

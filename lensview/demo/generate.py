@@ -60,7 +60,7 @@ def generate_demo(directory=DEMO_DIRECTORY, seed=None, *, size_factor=1.0):
     seed, size_factor = _check_options(seed, size_factor)
     directory = Path(directory)
     directory.mkdir(parents=True, exist_ok=True)
-    from ..deflection import DeflectionField
+    from ..lens.field import DeflectionField
 
     written, fields = [], []
     for grid in GRIDS:

@@ -10,7 +10,7 @@ from .scenario import CANDIDATE_FILE, CUTOUT_FILE, DEMO_DIRECTORY, GRIDS
 
 
 def load_demo(directory=None):
-    """Load the demo scenario through `lensview.fitsio` and `lensview.export`.
+    """Load the demo scenario through `lensview.io.fits` and `lensview.io`.
 
     Parameters
     ----------
@@ -19,7 +19,7 @@ def load_demo(directory=None):
 
     Returns
     -------
-    cutout : `~lensview.fitsio.Cutout`
+    cutout : `~lensview.io.fits.Cutout`
         The image of the arc.
     fields : list of `~lensview.DeflectionField`
         The three lens models, in the order of `MODEL_NAMES`, with the lens
@@ -35,9 +35,9 @@ def load_demo(directory=None):
     LensviewInputError
         If a demo file is missing.
     """
-    from ..deflection import DeflectionField
-    from ..export import read_candidates
-    from ..fitsio import read_cutout
+    from ..lens.field import DeflectionField
+    from ..io import read_candidates
+    from ..io.fits import read_cutout
 
     directory = DEMO_DIRECTORY if directory is None else Path(directory)
     needed = [directory / name for grid in GRIDS for name in grid.files]

@@ -17,7 +17,8 @@ from pathlib import Path
 
 import streamlit as st
 
-from ..deflection import FROM_HEADER, load_model
+from ..lens.loading import FROM_HEADER, load_model
+from ..checks import H0_RANGE, OM0_RANGE, flat_cosmology
 from ..errors import LensviewInputError
 
 __all__ = ["Scene", "HeldFile", "inputs_panel", "demo_scene", "files_scene", "upload_slot",
@@ -45,13 +46,13 @@ class Scene:
         Identity of the inputs (checksums and settings); changes whenever any
         of them changes.
     title : str
-    cutout : `~lensview.fitsio.Cutout`
+    cutout : `~lensview.io.fits.Cutout`
     fields : list of `~lensview.DeflectionField`
     z_lens : float
     cosmology : `~astropy.cosmology.Cosmology`
-    cutout_file : `~lensview.export.InputFile` or None
+    cutout_file : `~lensview.io.InputFile` or None
         Name and checksum of the cutout (for session files).
-    model_inputs : list of `~lensview.export.ModelInputs`
+    model_inputs : list of `~lensview.io.ModelInputs`
     files : dict
         File name -> bytes or path of every input, to check a session against.
     knots : `~astropy.table.Table` or None
@@ -86,7 +87,7 @@ def _named_bytes(name, content):
 
 @st.cache_resource(max_entries=4, show_spinner=False)
 def _cached_cutout(sha256, name, _content):
-    from ..fitsio import read_cutout
+    from ..io.fits import read_cutout
 
     return read_cutout(_named_bytes(name, _content))
 
@@ -108,7 +109,7 @@ def _cached_demo(checksums):
 @st.cache_resource(max_entries=8, show_spinner=False)
 def _cached_refit(demo_checksums, index, z_lens, cosmology_key):
     """A demo model again, for another lens redshift or cosmology."""
-    from ..deflection import DeflectionField
+    from ..lens.field import DeflectionField
 
     _, fields, _ = _cached_demo(demo_checksums)
     original = fields[index]
@@ -144,20 +145,14 @@ def cosmology_from_choice(choice, h0=70.0, om0=0.3):
         from astropy.cosmology import Planck18
 
         return Planck18
-    from astropy.cosmology import FlatLambdaCDM
-
-    if not (0 < om0 <= 1.5 and 10 <= h0 <= 200):
-        raise LensviewInputError(
-            f"A flat \u039bCDM cosmology needs 10 <= H0 <= 200 km/s/Mpc and 0 < \u03a9m <= 1.5; "
-            f"got H0 = {h0}, \u03a9m = {om0}.")
-    return FlatLambdaCDM(H0=h0, Om0=om0, Tcmb0=0.0)
+    return flat_cosmology(h0, om0)
 
 
 # ---------------------------------------------------------------------------- scenes
 def demo_scene(z_lens=None, cosmology_choice=(PLANCK,)):
     """The bundled demo field (invented data), optionally at another z_lens or cosmology."""
     from .. import demo
-    from ..export import InputFile, ModelInputs
+    from ..io import InputFile, ModelInputs
 
     files, checksums = _demo_files()
     cutout, originals, knots = _cached_demo(checksums)
@@ -256,7 +251,7 @@ def files_scene(cutout_files, model_specs, z_lens, cosmology_choice):
     LensviewInputError
         For any unusable file or setting.
     """
-    from ..export import InputFile, ModelInputs
+    from ..io import InputFile, ModelInputs
 
     if not cutout_files:
         raise LensviewInputError("No image cutout is loaded; upload a FITS cutout first.")
@@ -315,8 +310,8 @@ def inputs_panel(state):
     h0, om0 = 70.0, 0.3
     if choice == FLAT:
         left, right = sidebar.columns(2)
-        h0 = left.number_input("H0 (km/s/Mpc)", 10.0, 200.0, 70.0, 0.5, key="lv_h0")
-        om0 = right.number_input("\u03a9m", 0.01, 1.5, 0.3, 0.01, key="lv_om0")
+        h0 = left.number_input("H0 (km/s/Mpc)", *H0_RANGE, 70.0, 0.5, key="lv_h0")
+        om0 = right.number_input("\u03a9m", 0.01, OM0_RANGE[1], 0.3, 0.01, key="lv_om0")
     errors = []
     try:
         key = cosmology_key(choice, h0, om0)

@@ -103,7 +103,7 @@ def add_candidate_from_display_click(state, u_display, v_display, *, cutout, vie
     state : mapping
     u_display, v_display : float
         Display coordinates on the picture (see `click_display_position`).
-    cutout : `~lensview.fitsio.Cutout`
+    cutout : `~lensview.io.fits.Cutout`
         The image the picture shows.
     viewport : Viewport, optional
         The picture's viewport; default the one stored by the last drawing.

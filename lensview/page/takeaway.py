@@ -1,7 +1,7 @@
 """Main panel "Take away and restore": downloads, and bringing a session or catalogue back.
 
 Downloads are produced on demand (the button's data is a callable), by the
-export functions of `lensview.export` and `lensview.figures`, written to a
+export functions of `lensview.io` and `lensview.figures`, written to a
 temporary folder and handed over as bytes. `download_producers` builds the
 same callables for tests and scripts.
 """
@@ -50,7 +50,7 @@ def knot_table(state, links=()):
 
 def session_document(knots, scene, z_source, settings):
     """The session file's JSON text for the inputs, settings and knots (a `knot_table`)."""
-    from ..export import save_session
+    from ..io import save_session
 
     record = {
         "z_lens": scene.z_lens, "z_source": float(z_source), "cutout": scene.cutout_file,
@@ -71,7 +71,7 @@ def download_producers(state, scene, z_source, results, settings, viewport, *,
     another thread, when a button is pressed, where the session state is out
     of reach.
     """
-    from ..export import write_regions, write_table
+    from ..io import write_regions, write_table
     from ..figures import render_field_figure, save_figure
 
     knots = knot_table(state, results.links)
@@ -182,7 +182,7 @@ def _safe(produce):
 
 
 def _load_catalogue(state, scene, append):
-    from ..export import read_candidates
+    from ..io import read_candidates
 
     upload = state.get("lv_up_catalogue")
     if upload is None:
@@ -198,7 +198,7 @@ def _load_catalogue(state, scene, append):
 
 
 def _restore_session(state, scene):
-    from ..export import check_session_files, load_session
+    from ..io import check_session_files, load_session
 
     upload = state.get("lv_up_session")
     if upload is None:

@@ -88,7 +88,7 @@ def zero_point(header=None, user_value=None):
     Parameters
     ----------
     header : `~astropy.io.fits.Header`, optional
-        Header of the cutout; read with `lensview.fitsio.zero_point_from_header`.
+        Header of the cutout; read with `lensview.io.fits.zero_point_from_header`.
     user_value : float or `~astropy.units.Quantity` in mag, optional
         A zero point given by the user; it always wins.
 
@@ -101,7 +101,7 @@ def zero_point(header=None, user_value=None):
         return zero_point_value(user_value)
     if header is None:
         return None
-    from ..fitsio import zero_point_from_header
+    from ..io.fits import zero_point_from_header
 
     found = zero_point_from_header(header)
     return None if found is None else zero_point_value(found)

@@ -13,6 +13,7 @@ spline over a large map:
 import numpy as np
 
 __all__ = [
+    "TILE",
     "LAGRANGE_NODES",
     "lagrange_weights",
     "window_starts",
@@ -21,6 +22,10 @@ __all__ = [
     "central_difference_2",
 ]
 
+#: Cells per tile side for grid work: derivative terms are computed and cached
+#: per tile (lensview.lens.field), curves contoured and counter-images searched
+#: tile by tile.
+TILE = 16
 #: Number of grid nodes per axis used by the local interpolant.
 LAGRANGE_NODES = 6
 

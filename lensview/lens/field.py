@@ -32,9 +32,13 @@ from astropy.wcs import WCS
 from astropy.wcs.utils import proj_plane_pixel_scales
 from scipy import ndimage
 
-from . import cosmology as _cosmo
-from .errors import LensviewInputError, OutsideFootprintWarning
+from .. import cosmology as _cosmo
+from ..checks import positive_redshift
+from ..errors import LensviewInputError, OutsideFootprintWarning
+from ..io.fits import read_deflection
+from .curves import caustics, critical_curves
 from .stencils import (
+    TILE,
     LAGRANGE_NODES,
     central_difference_2,
     central_difference_4,
@@ -43,10 +47,8 @@ from .stencils import (
     window_starts,
 )
 
-__all__ = ["DeflectionField", "LocalTerms", "load_model", "FROM_HEADER"]
+__all__ = ["DeflectionField", "LocalTerms"]
 
-#: Cells per tile side for grid work.
-TILE = 16
 #: Maps larger than this (pixels per side) locate curves on a coarse grid first.
 HIERARCHY_THRESHOLD = 1024
 #: Spacing of the coarse grid used to locate curves on large maps.
@@ -147,9 +149,9 @@ class DeflectionField:
                 f"Unknown deflection units {units!r}; use 'arcsec' or 'pixel'."
             )
         self.cosmology = _cosmo.resolve_cosmology(cosmology)
-        self.z_lens = _redshift(z_lens, "lens")
+        self.z_lens = positive_redshift(z_lens, "lens redshift")
         if z_norm is not None:
-            z_norm = _redshift(z_norm, "normalisation")
+            z_norm = positive_redshift(z_norm, "normalisation redshift")
             # Raises a clear error when the reference source lies at or in front of the lens.
             _cosmo.distance_ratio(self.z_lens, z_norm, self.cosmology)
         self.z_norm = z_norm
@@ -187,7 +189,6 @@ class DeflectionField:
         units, z_lens, z_norm, cosmology, name
             As for `DeflectionField`.
         """
-        from .fitsio import read_deflection
 
         maps = read_deflection(x, y, units=units)
         if name is None:
@@ -510,8 +511,6 @@ class DeflectionField:
             "radial", ``sky`` in ICRS, ``closed``, ``model``); loops dropped
             as artefacts of singular centres are listed in ``.dropped``.
         """
-        from .curves import critical_curves
-
         self.scaling_factor(z_source)  # a clear error for a bad redshift before anything else
         key = round(float(z_source), 12)
         if key not in self._curve_cache:
@@ -522,8 +521,6 @@ class DeflectionField:
 
     def caustics(self, z_source):
         """Caustics (source-plane images of the critical curves), cusps located."""
-        from .curves import caustics
-
         self.scaling_factor(z_source)
         key = round(float(z_source), 12)
         if key not in self._caustic_cache:
@@ -536,37 +533,6 @@ class DeflectionField:
     def tiles(self):
         """The tile cache of grid terms (used by curve extraction)."""
         return self._tiles
-
-
-#: Ask `load_model` to take the normalisation from the Z_NORM header keyword.
-FROM_HEADER = "header"
-
-
-def load_model(x, y=None, *, z_lens, units=None, z_norm=FROM_HEADER, cosmology=None, name=None):
-    """A `DeflectionField` from files, reading what the headers say.
-
-    Parameters
-    ----------
-    x, y : str, path, bytes or file-like
-        As for `DeflectionField.from_fits`.
-    z_lens : float
-    units : {"arcsec", "pixel"} or None
-        None takes the units from the BUNIT keyword (an error names the
-        keyword when it is missing).
-    z_norm : float, None or FROM_HEADER
-        FROM_HEADER uses the Z_NORM keyword when present (maps made for a
-        source at that redshift) and D_ls/D_s = 1 otherwise; None means
-        D_ls/D_s = 1; a number is the reference source redshift.
-    cosmology, name
-        As for `DeflectionField`.
-    """
-    from .fitsio import read_deflection
-
-    maps = read_deflection(x, y, units=units)
-    if isinstance(z_norm, str) and z_norm == FROM_HEADER:
-        z_norm = maps.header.get("Z_NORM")
-    return DeflectionField(maps.alpha_x, maps.alpha_y, maps.wcs, units=maps.units, z_lens=z_lens,
-                           z_norm=z_norm, cosmology=cosmology, name=name or maps.name)
 
 
 class _TileCache:
@@ -689,16 +655,6 @@ def _as_map(values, label):
     return array
 
 
-def _redshift(value, role):
-    try:
-        z = float(value)
-    except (TypeError, ValueError):
-        raise LensviewInputError(f"The {role} redshift {value!r} is not a number.") from None
-    if not np.isfinite(z) or z <= 0:
-        raise LensviewInputError(
-            f"The {role} redshift must be a positive number, got {value!r}."
-        )
-    return z
 
 
 def _icrs(coords):

@@ -26,7 +26,8 @@ from scipy.sparse import coo_matrix
 from scipy.sparse.csgraph import connected_components, depth_first_order
 from scipy.spatial import cKDTree
 
-from .deflection import TILE
+from ..geometry import TangentPlane, mean_direction, plane_xy, polygon_area, polyline_length
+from .stencils import TILE
 
 __all__ = ["Curve", "DroppedLoop", "CurveSet", "critical_curves", "caustics"]
 
@@ -83,21 +84,18 @@ class Curve:
         return np.column_stack([x, y])
 
     def _plane_xy(self):
-        from .geometry import TangentPlane, mean_direction, plane_xy
 
         return plane_xy(TangentPlane(mean_direction(self.sky)), self.sky)
 
     @property
     def length(self):
         """Length along the curve (`~astropy.units.Quantity`, arcsec)."""
-        from .geometry import polyline_length
 
         return polyline_length(self._plane_xy(), self.closed) * u.arcsec
 
     @property
     def area(self):
         """Enclosed area (arcsec**2) of a closed curve; NaN for open ones."""
-        from .geometry import polygon_area
 
         if not self.closed:
             return np.nan * u.arcsec**2

@@ -34,7 +34,7 @@ from astropy.io import fits
 from astropy.utils.exceptions import AstropyUserWarning
 from astropy.wcs import WCS, FITSFixedWarning
 
-from .errors import LensviewInputError
+from ..errors import LensviewInputError
 
 __all__ = [
     "Cutout",
