@@ -16,10 +16,12 @@ from astropy.wcs import WCS
 from .errors import LensviewInputError
 
 __all__ = [
+    "DEFLECTION_UNITS",
     "H0_RANGE",
     "OM0_RANGE",
     "angle_arcsec",
     "celestial_wcs",
+    "deflection_units",
     "finite_number",
     "flat_cosmology",
     "length_unit",
@@ -39,6 +41,8 @@ H0_RANGE = (10.0, 200.0)
 #: Matter densities accepted for a user's flat LCDM cosmology: above 0, and up
 #: to 1 (Einstein-de Sitter) so that the dark-energy density is not negative.
 OM0_RANGE = (0.0, 1.0)
+#: Units a deflection map may be given in (pixels are the map's own).
+DEFLECTION_UNITS = ("arcsec", "pixel")
 
 
 # ---------------------------------------------------------------------------- redshifts
@@ -139,6 +143,15 @@ def positive_angle(value, name, allow_none=False):
         raise LensviewInputError(
             f"{name} must be a positive angle Quantity, got {value!r}; pass e.g. 0.1 * u.arcsec.")
     return angle
+
+
+def deflection_units(units, *, from_header=False):
+    """Deflection units: "arcsec" or "pixel" (the map's own pixels); with
+    ``from_header`` also None, meaning "take them from the BUNIT keyword"."""
+    if (units is None and from_header) or units in DEFLECTION_UNITS:
+        return units
+    hint = ", or None to take them from the BUNIT keyword" if from_header else ""
+    raise LensviewInputError(f"Unknown deflection units {units!r}; use 'arcsec' or 'pixel'{hint}.")
 
 
 def length_unit(unit):

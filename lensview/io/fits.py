@@ -34,6 +34,7 @@ from astropy.io import fits
 from astropy.utils.exceptions import AstropyUserWarning
 from astropy.wcs import WCS, FITSFixedWarning
 
+from ..checks import DEFLECTION_UNITS, deflection_units
 from ..errors import LensviewInputError
 
 __all__ = [
@@ -47,8 +48,6 @@ __all__ = [
     "ZERO_POINT_KEYWORDS",
 ]
 
-#: Units a deflection map may be given in.
-DEFLECTION_UNITS = ("arcsec", "pixel")
 #: Largest disagreement (in pixels) allowed between the x and y map WCS.
 WCS_TOLERANCE_PIXELS = 1e-3
 #: Header keywords that carry an AB zero point directly, in order of preference.
@@ -200,7 +199,7 @@ def read_deflection(x, y=None, *, units="arcsec", hdu_x=None, hdu_y=None):
         Missing file, not FITS, no celestial WCS, wrong dimensionality, x and
         y of different shape or WCS, an all-NaN map, or unknown units.
     """
-    _check_units_argument(units)
+    deflection_units(units, from_header=True)
     if y is None:
         maps = _read_one_file(x, hdu_x, hdu_y)
     else:
@@ -599,14 +598,6 @@ def _require_finite(data, what):
         f"{what} holds no finite values (all NaN or infinite); check that the right "
         "file and HDU were given."
     )
-
-
-def _check_units_argument(units):
-    if units is not None and units not in DEFLECTION_UNITS:
-        raise LensviewInputError(
-            f"Unknown deflection units {units!r}; use 'arcsec' or 'pixel', or None to "
-            "take them from the BUNIT keyword."
-        )
 
 
 def _resolve_units(units, headers):

@@ -33,7 +33,7 @@ from astropy.wcs.utils import proj_plane_pixel_scales
 from scipy import ndimage
 
 from .. import cosmology as _cosmo
-from ..checks import positive_redshift
+from ..checks import deflection_units, positive_redshift
 from ..errors import LensviewInputError, OutsideFootprintWarning
 from ..io.fits import read_deflection
 from .curves import caustics, critical_curves
@@ -144,10 +144,7 @@ class DeflectionField:
                 "The deflection maps need a celestial WCS (RA/Dec axes); give the "
                 "WCS of the FITS header the maps came from."
             )
-        if units not in ("arcsec", "pixel"):
-            raise LensviewInputError(
-                f"Unknown deflection units {units!r}; use 'arcsec' or 'pixel'."
-            )
+        deflection_units(units)
         self.cosmology = _cosmo.resolve_cosmology(cosmology)
         self.z_lens = positive_redshift(z_lens, "lens redshift")
         if z_norm is not None:
