@@ -1,69 +1,29 @@
-"""Analytic lens profiles rendered onto WCS grids (tests and the demo).
+"""Analytic lens profiles on offsets from their centres (East, North, arcsec).
 
-Profiles live in the map's own intermediate world plane: for a TAN WCS the
-plane coordinates (x East, y North, arcsec, about the reference point) are
-an affine function of the pixel coordinates, plane = CD (pix - crpix), so
-analytic and numerical quantities share one frame exactly. A profile centre
-given on the sky is placed in that plane through the WCS.
-
-Every profile is described for the map normalisation D_ls/D_s = 1 (its
-Einstein radius, convergence scale or shear are those of a source with
-D_ls/D_s = 1; multiply deflections by D_ls/D_s for a real source). Each one
-evaluates on offsets (x, y) from its own centre, East and North in arcsec:
-
-* ``deflection(x, y)`` -> (alpha_x, alpha_y) in arcsec along East, North,
-* ``convergence(x, y)``,
-* ``jacobian(x, y)`` -> (a11, a12, a21, a22) = d alpha_i / d theta_j, by
-  complex-step differentiation (Squire & Trapp 1998, SIAM Review 40, 110):
-  f'(x) = Im f(x + i h) / h has no subtractive cancellation and an error of
-  order h^2 f''' / f', so with h = 1e-30 arcsec it is exact to rounding
-  (relative ~1e-15) for the real-analytic deflections here.
-
-Position angles are measured from North (y) through East (x). Singular
-profiles (point mass, singular isothermal sphere and ellipsoid) give NaN at
-their exact centre, where the deflection has no value.
-"""
+Each profile is described for the map normalisation D_ls/D_s = 1 and gives
+``deflection``, ``convergence`` and ``jacobian`` (complex-step derivatives,
+Squire & Trapp 1998, SIAM Review 40, 110)."""
 
 import numpy as np
 import astropy.units as u
 from astropy import constants as const
 from astropy.coordinates import SkyCoord
-from astropy.wcs import WCS
 
-from .checks import finite_number
-from .errors import LensviewInputError
-
-__all__ = [
-    "PointMass",
-    "IsothermalSphere",
-    "IsothermalEllipsoid",
-    "NFW",
-    "ExternalShear",
-    "CompositeLens",
-    "make_wcs",
-    "plane_coordinates",
-    "sky_to_plane",
-    "plane_to_sky",
-    "deflection_maps",
-    "convergence_map",
-    "magnification_map",
-]
+from ..checks import finite_number
+from ..errors import LensviewInputError
 
 _STEP = 1e-30  # complex step, arcsec
 _SERIES_TERMS = 24  # |w| < 0.05 in the NFW series: 0.05**24 ~ 6e-32
 _SERIES_LIMIT = 0.05
-_BLOCK_PIXELS = 1 << 20  # grid evaluation in blocks of about a million pixels
 
-
-# ------------------------------------------------------------------ validation
-def _center(value):
+def centre_coord(value):
     if not isinstance(value, SkyCoord) or not value.isscalar:
         raise LensviewInputError(
             "A lens centre must be a single SkyCoord, e.g. SkyCoord(150.1 * u.deg, 2.2 * u.deg).")
     return value.icrs
 
 
-def _arcsec(value, name, *, positive=False, allow_zero=False):
+def arcsec_value(value, name, *, positive=False, allow_zero=False):
     try:
         number = u.Quantity(value, u.arcsec)
     except (u.UnitsError, TypeError) as error:
@@ -76,7 +36,7 @@ def _arcsec(value, name, *, positive=False, allow_zero=False):
     return number
 
 
-def _position_angle(value, name="pa"):
+def position_angle_rad(value, name="pa"):
     try:
         return float(u.Quantity(value, u.deg).to_value(u.rad))
     except (u.UnitsError, TypeError) as error:
@@ -85,9 +45,7 @@ def _position_angle(value, name="pa"):
             f"got {value!r}.") from error
 
 
-
-
-def _offsets(x, y):
+def plane_offsets(x, y):
     """Offsets as float arrays in arcsec (Quantity or plain numbers)."""
     def one(value):
         if isinstance(value, u.Quantity):
@@ -100,7 +58,6 @@ def _sqrt(z):
     return np.sqrt(z) if np.iscomplexobj(z) else np.sqrt(np.maximum(z, 0.0))
 
 
-# -------------------------------------------------------------------- profiles
 class _Profile:
     """Shared behaviour: unit handling and complex-step Jacobians.
 
@@ -123,7 +80,7 @@ class _Profile:
         alpha_x, alpha_y : ndarray
             Deflection along East and North in arcsec, for D_ls/D_s = 1.
         """
-        x, y = _offsets(x, y)
+        x, y = plane_offsets(x, y)
         with np.errstate(divide="ignore", invalid="ignore"):
             return self._deflection(x, y)
 
@@ -139,7 +96,7 @@ class _Profile:
         -------
         ndarray
         """
-        x, y = _offsets(x, y)
+        x, y = plane_offsets(x, y)
         with np.errstate(divide="ignore", invalid="ignore"):
             return self._convergence(x, y)
 
@@ -157,7 +114,7 @@ class _Profile:
             d alpha_x/dx, d alpha_x/dy, d alpha_y/dx, d alpha_y/dy, for
             D_ls/D_s = 1.
         """
-        x, y = _offsets(x, y)
+        x, y = plane_offsets(x, y)
         with np.errstate(divide="ignore", invalid="ignore"):
             ax_x, ay_x = self._deflection(x + 1j * _STEP, y + 0j)
             ax_y, ay_y = self._deflection(x + 0j, y + 1j * _STEP)
@@ -191,8 +148,8 @@ class PointMass(_Profile):
     """
 
     def __init__(self, center, theta_e):
-        self.center = _center(center)
-        self.theta_e = _arcsec(theta_e, "theta_e", positive=True)
+        self.center = centre_coord(center)
+        self.theta_e = arcsec_value(theta_e, "theta_e", positive=True)
 
     def _deflection(self, x, y):
         r2 = x * x + y * y
@@ -221,9 +178,9 @@ class IsothermalSphere(_Profile):
     """
 
     def __init__(self, center, theta_e, core=0 * u.arcsec):
-        self.center = _center(center)
-        self.theta_e = _arcsec(theta_e, "theta_e", positive=True)
-        self.core = _arcsec(core, "core", positive=True, allow_zero=True)
+        self.center = centre_coord(center)
+        self.theta_e = arcsec_value(theta_e, "theta_e", positive=True)
+        self.core = arcsec_value(core, "core", positive=True, allow_zero=True)
 
     @classmethod
     def from_velocity_dispersion(cls, sigma, z_lens, z_source, center, cosmology=None,
@@ -253,7 +210,7 @@ class IsothermalSphere(_Profile):
             Einstein radius for ``z_source`` (arcsec Quantity) and
             ``z_lens``, ``z_source`` the redshifts.
         """
-        from .cosmology import distance_ratio
+        from ..cosmology import distance_ratio
 
         try:
             sigma = u.Quantity(sigma, u.km / u.s)
@@ -311,16 +268,16 @@ class IsothermalEllipsoid(_Profile):
     """
 
     def __init__(self, center, theta_e, q, pa, core=0 * u.arcsec):
-        self.center = _center(center)
-        self.theta_e = _arcsec(theta_e, "theta_e", positive=True)
+        self.center = centre_coord(center)
+        self.theta_e = arcsec_value(theta_e, "theta_e", positive=True)
         q = finite_number(q, "The axis ratio q", low=0.0)
         if q > 1:
             raise LensviewInputError(
                 f"The axis ratio q = minor/major must be in (0, 1]; got {q}. Use 1/q and turn "
                 "the position angle by 90 degrees.")
         self.q = q
-        self.pa = _position_angle(pa)
-        self.core = _arcsec(core, "core", positive=True, allow_zero=True)
+        self.pa = position_angle_rad(pa)
+        self.core = arcsec_value(core, "core", positive=True, allow_zero=True)
 
     def _deflection(self, x, y):
         major, minor = self._to_axes(x, y, self.pa)
@@ -384,9 +341,9 @@ class NFW(_Profile):
     """
 
     def __init__(self, center, kappa_s, r_s):
-        self.center = _center(center)
+        self.center = centre_coord(center)
         self.kappa_s = finite_number(kappa_s, "kappa_s", low=0.0)
-        self.r_s = _arcsec(r_s, "r_s", positive=True)
+        self.r_s = arcsec_value(r_s, "r_s", positive=True)
 
     @staticmethod
     def _h(x):
@@ -421,7 +378,7 @@ class NFW(_Profile):
         ndarray
             4 kappa_s h(x) / x^2 with x = r / r_s (Wright & Brainerd 2000).
         """
-        r, _ = _offsets(r, 0.0)
+        r, _ = plane_offsets(r, 0.0)
         x = r / self.r_s
         with np.errstate(divide="ignore", invalid="ignore"):
             return 4 * self.kappa_s * self._h(x) / x**2
@@ -455,9 +412,9 @@ class ExternalShear(_Profile):
     """
 
     def __init__(self, gamma, pa, center):
-        self.center = _center(center)
+        self.center = centre_coord(center)
         self.gamma = finite_number(gamma, "gamma")
-        self.pa = _position_angle(pa)
+        self.pa = position_angle_rad(pa)
 
     def _deflection(self, x, y):
         along, across = self._to_axes(x, y, self.pa)
@@ -482,11 +439,11 @@ class CompositeLens(_Profile):
     """
 
     def __init__(self, profiles, center=None):
-        self.profiles = _flatten(list(profiles))
+        self.profiles = flatten_profiles(list(profiles))
         if not self.profiles:
             raise LensviewInputError("A CompositeLens needs at least one profile.")
-        self.center = self.profiles[0].center if center is None else _center(center)
-        from .geometry import TangentPlane
+        self.center = self.profiles[0].center if center is None else centre_coord(center)
+        from ..geometry import TangentPlane
 
         plane = TangentPlane(self.center)
         self._shifts = [tuple(float(v.to_value(u.arcsec)) for v in plane.to_plane(p.center))
@@ -510,7 +467,7 @@ class CompositeLens(_Profile):
                    for p, (cx, cy) in zip(self.profiles, self._shifts))
 
 
-def _flatten(profiles):
+def flatten_profiles(profiles):
     if isinstance(profiles, _Profile) and not isinstance(profiles, CompositeLens):
         return [profiles]
     out = []
@@ -525,234 +482,3 @@ def _flatten(profiles):
     return out
 
 
-# ---------------------------------------------------------------------- grids
-def make_wcs(center, shape, pixel_scale, rotation=0 * u.deg, flip_east=True):
-    """A TAN WCS with a CD matrix, centred on a sky position.
-
-    Parameters
-    ----------
-    center : `~astropy.coordinates.SkyCoord`
-        Sky position of the middle of the grid (the reference point).
-    shape : tuple of int
-        (ny, nx).
-    pixel_scale : `~astropy.units.Quantity`
-        Angle per pixel, the same along both axes.
-    rotation : `~astropy.units.Quantity`
-        Position angle of the +y pixel axis, North through East.
-    flip_east : bool
-        True for the usual orientation with East to the left of North
-        (det CD < 0, +x towards West at rotation 0); False for a mirrored grid.
-
-    Returns
-    -------
-    `~astropy.wcs.WCS`
-    """
-    center = _center(center)
-    ny, nx = _shape(shape)
-    scale = _arcsec(pixel_scale, "pixel_scale", positive=True) / 3600.0
-    th = _position_angle(rotation, "rotation")
-    sign = -1.0 if flip_east else 1.0
-    wcs = WCS(naxis=2)
-    wcs.wcs.ctype = ["RA---TAN", "DEC--TAN"]
-    wcs.wcs.radesys = "ICRS"
-    wcs.wcs.crval = [center.ra.deg, center.dec.deg]
-    wcs.wcs.crpix = [(nx + 1) / 2, (ny + 1) / 2]
-    # Columns: the +x and +y pixel axes as (East, North) steps in degrees.
-    wcs.wcs.cd = scale * np.array([[sign * np.cos(th), np.sin(th)],
-                                   [-sign * np.sin(th), np.cos(th)]])
-    wcs.wcs.set()
-    return wcs
-
-
-def _shape(shape):
-    try:
-        ny, nx = (int(v) for v in shape)
-    except (TypeError, ValueError) as error:
-        raise LensviewInputError(f"shape must be (ny, nx); got {shape!r}.") from error
-    if ny < 1 or nx < 1:
-        raise LensviewInputError(f"shape must be two positive sizes (ny, nx); got {shape!r}.")
-    return ny, nx
-
-
-def _tan_wcs(wcs):
-    """The celestial part of a WCS whose pixels map affinely onto its plane."""
-    if not isinstance(wcs, WCS) or not wcs.has_celestial:
-        raise LensviewInputError("Analytic maps need a celestial astropy WCS (RA---TAN, DEC--TAN).")
-    cel = wcs.celestial
-    if [c[-3:] for c in cel.wcs.ctype] != ["TAN", "TAN"] or cel.sip is not None \
-            or cel.cpdis1 is not None or cel.cpdis2 is not None or cel.det2im1 is not None \
-            or cel.det2im2 is not None:
-        raise LensviewInputError(
-            f"Analytic profiles are rendered on undistorted TAN grids only (got "
-            f"{list(cel.wcs.ctype)}); use make_wcs or a RA---TAN/DEC--TAN WCS without SIP or "
-            "lookup-table distortions.")
-    if not np.isclose(cel.wcs.lonpole, 180.0):
-        raise LensviewInputError(
-            f"LONPOLE = {cel.wcs.lonpole} turns the TAN plane away from East/North; use the "
-            "default 180 degrees.")
-    if cel.wcs.lng != 0:
-        raise LensviewInputError("The WCS has latitude before longitude; give RA first, then Dec.")
-    return cel
-
-
-def _matrix(cel):
-    """Pixel-to-plane matrix in arcsec per pixel (rows East, North; columns x, y)."""
-    return cel.pixel_scale_matrix * 3600.0
-
-
-def _pixels_to_plane(cel, px, py):
-    m = _matrix(cel)
-    dx, dy = px - (cel.wcs.crpix[0] - 1.0), py - (cel.wcs.crpix[1] - 1.0)
-    return m[0, 0] * dx + m[0, 1] * dy, m[1, 0] * dx + m[1, 1] * dy
-
-
-def plane_coordinates(wcs, shape):
-    """Plane coordinates of every pixel of a grid.
-
-    Parameters
-    ----------
-    wcs : `~astropy.wcs.WCS`
-        TAN WCS of the grid.
-    shape : tuple of int
-        (ny, nx).
-
-    Returns
-    -------
-    x, y : ndarray
-        (ny, nx) arrays, arcsec East and North of the reference point.
-    """
-    cel = _tan_wcs(wcs)
-    ny, nx = _shape(shape)
-    py, px = np.mgrid[0:ny, 0:nx].astype(float)
-    return _pixels_to_plane(cel, px, py)
-
-
-def sky_to_plane(wcs, coords):
-    """Plane coordinates of sky positions on a map's WCS.
-
-    Parameters
-    ----------
-    wcs : `~astropy.wcs.WCS`
-    coords : `~astropy.coordinates.SkyCoord`
-
-    Returns
-    -------
-    x, y : ndarray
-        Arcsec East and North of the reference point.
-    """
-    cel = _tan_wcs(wcs)
-    px, py = cel.world_to_pixel(coords)
-    return _pixels_to_plane(cel, np.asarray(px, float), np.asarray(py, float))
-
-
-def plane_to_sky(wcs, x, y):
-    """Sky positions of plane coordinates on a map's WCS.
-
-    Parameters
-    ----------
-    wcs : `~astropy.wcs.WCS`
-    x, y : array_like or `~astropy.units.Quantity`
-        East and North of the reference point (plain numbers in arcsec).
-
-    Returns
-    -------
-    `~astropy.coordinates.SkyCoord`
-        ICRS positions.
-    """
-    cel = _tan_wcs(wcs)
-    x, y = _offsets(x, y)
-    inverse = np.linalg.inv(_matrix(cel))
-    px = inverse[0, 0] * x + inverse[0, 1] * y + cel.wcs.crpix[0] - 1.0
-    py = inverse[1, 0] * x + inverse[1, 1] * y + cel.wcs.crpix[1] - 1.0
-    return cel.pixel_to_world(px, py).icrs
-
-
-def _on_grid(profiles, wcs, shape, evaluate, n_out):
-    """Sum ``evaluate(profile, dx, dy)`` over profiles at every pixel, in row blocks."""
-    members = _flatten(profiles)
-    cel = _tan_wcs(wcs)
-    ny, nx = _shape(shape)
-    centres = [sky_to_plane(cel, p.center) for p in members]
-    out = [np.zeros((ny, nx)) for _ in range(n_out)]
-    rows = max(1, _BLOCK_PIXELS // nx)
-    for start in range(0, ny, rows):
-        py, px = np.mgrid[start:min(ny, start + rows), 0:nx].astype(float)
-        x, y = _pixels_to_plane(cel, px, py)
-        for profile, (cx, cy) in zip(members, centres):
-            for total, part in zip(out, evaluate(profile, x - cx, y - cy)):
-                total[start:start + rows] += part
-    return out
-
-
-def deflection_maps(profiles, wcs, shape, *, dtype=np.float64):
-    """Deflection maps in the file convention of lensview.
-
-    The components are those along the map's own +x and +y pixel axes, in
-    arcsec: the plane (East, North) deflection is turned into pixels with the
-    inverse of the pixel scale matrix, and each pixel component is multiplied
-    by that axis' pixel scale |CD[:, i]| in arcsec. This holds for rotated
-    and mirrored grids alike.
-
-    Parameters
-    ----------
-    profiles : profile, list of profiles or `CompositeLens`
-        Normalised to D_ls/D_s = 1.
-    wcs : `~astropy.wcs.WCS`
-        TAN WCS of the map.
-    shape : tuple of int
-        (ny, nx).
-    dtype : numpy dtype
-        Output type (float32 for files like most published ones).
-
-    Returns
-    -------
-    alpha_x, alpha_y : ndarray
-    """
-    east, north = _on_grid(profiles, wcs, shape, lambda p, x, y: p.deflection(x, y), 2)
-    m = _matrix(_tan_wcs(wcs))
-    inverse = np.linalg.inv(m)
-    along_x = inverse[0, 0] * east + inverse[0, 1] * north
-    along_y = inverse[1, 0] * east + inverse[1, 1] * north
-    scales = np.sqrt((m**2).sum(axis=0))
-    return (along_x * scales[0]).astype(dtype), (along_y * scales[1]).astype(dtype)
-
-
-def convergence_map(profiles, wcs, shape):
-    """Exact convergence at every pixel, for D_ls/D_s = 1.
-
-    Parameters
-    ----------
-    profiles : profile, list of profiles or `CompositeLens`
-    wcs : `~astropy.wcs.WCS`
-    shape : tuple of int
-        (ny, nx).
-
-    Returns
-    -------
-    ndarray
-    """
-    (kappa,) = _on_grid(profiles, wcs, shape, lambda p, x, y: (p.convergence(x, y),), 1)
-    return kappa
-
-
-def magnification_map(profiles, wcs, shape, scaling=1.0):
-    """Exact signed magnification 1 / det(I - f a) at every pixel.
-
-    Parameters
-    ----------
-    profiles : profile, list of profiles or `CompositeLens`
-    wcs : `~astropy.wcs.WCS`
-    shape : tuple of int
-        (ny, nx).
-    scaling : float
-        f = D_ls/D_s of the source (1 for the map normalisation).
-
-    Returns
-    -------
-    ndarray
-        Negative where the image parity is odd.
-    """
-    a11, a12, a21, a22 = _on_grid(profiles, wcs, shape, lambda p, x, y: p.jacobian(x, y), 4)
-    f = finite_number(scaling, "scaling", low=0.0)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        return 1.0 / ((1 - f * a11) * (1 - f * a22) - f * f * a12 * a21)
