@@ -271,9 +271,7 @@ def _measure_one(realisation, index, coords, z_source, cosmology, labels):
 # ---------------------------------------------------------------------------- running
 def _client(scheduler):
     """(client, whether we opened it) for a distributed scheduler, else (None, False)."""
-    if isinstance(scheduler, str):
-        if "://" not in scheduler:
-            return None, False
+    if isinstance(scheduler, str) and "://" in scheduler:
         from distributed import Client
 
         try:
