@@ -270,22 +270,18 @@ def _measure_one(realisation, index, coords, z_source, cosmology, labels):
 
 # ---------------------------------------------------------------------------- running
 def _client(scheduler):
-    """(client, whether we opened it) for a distributed scheduler, else (None, False)."""
-    if isinstance(scheduler, str) and "://" in scheduler:
-        from distributed import Client
+    """(client, whether it was opened here) for a Client or a scheduler address."""
+    from distributed import Client
 
+    if isinstance(scheduler, Client):
+        return scheduler, False
+    if isinstance(scheduler, str) and "://" in scheduler:
         try:
             return Client(scheduler, timeout="10s"), True
         except (OSError, TimeoutError) as error:
             raise LensviewInputError(
                 f"Cannot reach a dask scheduler at {scheduler} ({error}); start one there or "
                 "check the address.") from None
-    try:
-        from distributed import Client
-    except ImportError:  # pragma: no cover - distributed is a requirement
-        Client = ()
-    if isinstance(scheduler, Client):
-        return scheduler, False
     raise LensviewInputError(
         f"Unknown scheduler {scheduler!r}; give 'threads', 'processes', 'synchronous', a "
         "dask.distributed Client or a scheduler address such as 'tcp://host:8786'.")
@@ -387,7 +383,7 @@ def measure_ensemble(coords, realisations, z_source, *, cosmology=None, labels=N
         if progress is not None:
             progress(done, total)
 
-    shared = dask.delayed(coords, name="knots")
+    shared = dask.delayed(coords)  # one copy of the knots in the graph, shared by the tasks
     tasks = [dask.delayed(_measure_one, pure=False)(r, k, shared, z_source, cosmology, labels)
              for k, r in enumerate(realisations)]
     client, opened = _client(scheduler) if not _local(scheduler) else (None, False)
