@@ -8,7 +8,9 @@ against a plain sequential loop written here (`load_model` and
 compared. Memory: peak traced allocations (tracemalloc) and peak resident
 memory (sampled from /proc) beyond the baseline, for 25 and for 100
 realisations, against the size of one realisation's arrays and against the
-working memory of measuring one realisation alone.
+working memory of measuring one realisation alone (curve extraction needs
+about 15 times a realisation's arrays). With two threads the ensemble's peak
+is that of two realisations in flight, whatever their number.
 
 Usage: ``python bench/run.py bench_ensemble`` (``LENSVIEW_BENCH_REALISATIONS``
 sets a smaller number for a quick look).
