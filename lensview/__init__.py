@@ -24,6 +24,8 @@ _EXPORTS = {
     "predict_counterimages": "counterparts",
     "source_plane_image": "counterparts",
     "measure_ensemble": "ensemble",
+    "summarize_ensemble": "ensemble",
+    "find_realisations": "ensemble",
     "write_regions": "io",
     "read_candidates": "io",
     "write_table": "io",

@@ -9,11 +9,13 @@ and exit status 2, never a traceback):
 ``lensview pair``     mirrored pairs among marked candidates
 ``lensview figure``   publication figure of the cutout with overlays
 ``lensview session``  check a saved session against its input files
+``lensview posterior`` knots across many realisations of one model (percentiles)
 ``lensview demo``     regenerate the invented demo scenario
 """
 
 import argparse
 import sys
+import warnings
 from pathlib import Path
 
 import astropy.units as u
@@ -278,6 +280,76 @@ def cmd_demo(args):
           + (f" ({len(written)} files)" if written else ""))
 
 
+def cmd_posterior(args):
+    from .lens.loading import FROM_HEADER
+    from .ensemble import BrokenRealisationWarning, measure_ensemble
+    from .io import write_table
+
+    coords, labels, _ = _candidates(args.knots)
+    z_norm = FROM_HEADER if args.z_norm is None else (
+        None if args.z_norm == _UNIT_NORMALISATION else args.z_norm)
+    cosmology = _cosmology(args)
+    _progress(f"measuring {len(coords)} knot(s) on the realisations in "
+              f"{', '.join(args.realisations)}")
+    with _ProgressBar("realisations") as bar, warnings.catch_warnings():
+        warnings.simplefilter("ignore", BrokenRealisationWarning)  # reported below, one per line
+        summary, samples = measure_ensemble(
+            coords, args.realisations, args.z_source, z_lens=args.z_lens, units=args.units,
+            z_norm=z_norm, cosmology=cosmology, labels=labels, percentiles=args.percentiles,
+            mu_thresholds=args.mu_threshold, scheduler=args.scheduler, progress=bar.update,
+            return_samples=True)
+    for broken in summary.meta["broken"]:
+        _progress(f"left out {broken['name']}: {broken['message']}")
+    write_table(summary, args.output, cosmology=cosmology)
+    print(f"wrote the distributions of {len(summary)} knot(s) over "
+          f"{summary.meta['n_realisations']} realisation(s) to {args.output}")
+    if args.samples:
+        write_table(samples, args.samples, cosmology=cosmology)
+        print(f"wrote {len(samples)} per-realisation row(s) to {args.samples}")
+
+
+class _ProgressBar:
+    """A progress bar on stderr: redrawn in place on a terminal, a line per tenth otherwise."""
+
+    WIDTH = 30
+
+    def __init__(self, what):
+        self.what = what
+        self.tty = sys.stderr.isatty()
+        self.shown = -1
+
+    def update(self, done, total):
+        if not self.tty and done != total and (10 * done) // total == self.shown:
+            return
+        self.shown = (10 * done) // total
+        filled = self.WIDTH * done // total
+        bar = "#" * filled + "." * (self.WIDTH - filled)
+        end = "" if self.tty and done < total else "\n"
+        prefix = "\r" if self.tty else ""
+        print(f"{prefix}[lensview] {self.what} [{bar}] {done}/{total}", end=end, file=sys.stderr,
+              flush=True)
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc):
+        if self.tty and exc[0] is not None and self.shown >= 0:
+            print(file=sys.stderr, flush=True)
+        return False
+
+
+def _percentile_list(text):
+    try:
+        values = [float(v) for v in text.split(",") if v.strip()]
+    except ValueError:
+        values = []
+    if not values or not all(0 <= v <= 100 for v in values):
+        raise argparse.ArgumentTypeError(
+            f"{text!r} is not a list of percentiles; give numbers between 0 and 100 separated "
+            "by commas, e.g. 2.5,16,50,84,97.5")
+    return values
+
+
 def _sibling(path, suffix):
     path = Path(path)
     return str(path.with_name(path.stem + suffix + path.suffix))
@@ -343,6 +415,37 @@ def build_parser():
     p.add_argument("files", nargs="*", help="the cutout and model files to check")
     p.add_argument("--candidates-out", help="also write the session's candidates (.ecsv/.csv/.vot)")
     p.set_defaults(run=cmd_session)
+
+    p = sub.add_parser("posterior", help="distributions of knot measurements over many "
+                                         "realisations of one lens model")
+    p.add_argument("--realisations", action="append", required=True, metavar="FOLDER|GLOB",
+                   help="folder or glob pattern of the realisations' FITS files: pairs named "
+                        "*_alpha_x/*_alpha_y (or _x/_y, _defx/_defy), or one file each with two "
+                        "image HDUs or a two-plane cube; repeat to add more")
+    p.add_argument("--knots", "--candidates", dest="knots", required=True, metavar="FILE",
+                   help="CSV/ECSV/VOTable of knots with RA/Dec columns")
+    p.add_argument("--z-lens", type=float, required=True, help="lens redshift")
+    p.add_argument("--z-source", type=float, required=True, help="source redshift")
+    p.add_argument("--units", choices=["arcsec", "pixel"], default=None,
+                   help="deflection units of every realisation (default: the files' BUNIT)")
+    p.add_argument("--z-norm", type=_normalisation, default=None, metavar="Z|unit",
+                   help="redshift the maps were made for, or 'unit' (default: the files' Z_NORM "
+                        "keyword, else unit)")
+    p.add_argument("--h0", type=float, default=None,
+                   help="Hubble constant (km/s/Mpc) for a flat LCDM cosmology; default Planck18")
+    p.add_argument("--om0", type=float, default=None,
+                   help="matter density for a flat LCDM cosmology (with --h0)")
+    p.add_argument("--percentiles", type=_percentile_list, default=[2.5, 16.0, 50.0, 84.0, 97.5],
+                   metavar="P,P,...", help="percentiles to report (default 2.5,16,50,84,97.5)")
+    p.add_argument("--mu-threshold", type=float, action="append", default=[], metavar="T",
+                   help="also report the fraction of realisations with |mu| > T; repeatable")
+    p.add_argument("--scheduler", default="threads", metavar="ADDRESS",
+                   help="dask scheduler: 'threads' (default), 'processes', 'synchronous', or the "
+                        "address of a dask.distributed scheduler, e.g. tcp://host:8786")
+    p.add_argument("--samples", metavar="FILE",
+                   help="also write every realisation's measurements (.ecsv, .csv or .vot)")
+    p.add_argument("-o", "--output", required=True, help="summary table (.ecsv, .csv or .vot)")
+    p.set_defaults(run=cmd_posterior)
 
     p = sub.add_parser("demo", help="regenerate the invented demo scenario")
     p.add_argument("directory", nargs="?", default="sample_images")

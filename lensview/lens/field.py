@@ -25,6 +25,7 @@ Two evaluation paths, both free of any global spline:
 """
 
 import warnings
+import weakref
 
 import numpy as np
 import astropy.units as u
@@ -544,7 +545,8 @@ class _TileCache:
     NODES = TILE + 1
 
     def __init__(self, field):
-        self.field = field
+        # A weak reference: no cycle with the field, so its maps are freed with its last user.
+        self.field = weakref.proxy(field)
         ny, nx = field.shape
         self.grid_shape = (-(-(ny - 1) // TILE), -(-(nx - 1) // TILE))
         self.slot = np.full(self.grid_shape, -1, dtype=np.int64)

@@ -3,15 +3,16 @@
 One module per panel: `inputs` (sidebar "Field and models"), `sky` (the
 clickable picture and marking controls), `knots` (knot list and
 measurements), `images` (counter-images and pairs), `source` (source plane),
-`takeaway` (downloads and restore); `state` keeps the knots, `viewport` maps
-picture pixels to cutout pixels, `picture` draws, and `analysis` gathers the
-library's numbers once per rerun. No physics lives here.
+`takeaway` (downloads and restore), `ensemble` (knots over many realisations);
+`state` keeps the knots, `viewport` maps picture pixels to cutout pixels,
+`picture` draws, and `analysis` gathers the library's numbers once per rerun. No physics lives here.
 """
 
 __all__ = ["main"]
 
 TITLE = "lensview"
-TABS = ("Measurements", "Counter-images and pairs", "Source plane", "Take away and restore")
+TABS = ("Measurements", "Counter-images and pairs", "Source plane", "Take away and restore",
+        "Posterior spread")
 
 
 def main():
@@ -20,6 +21,7 @@ def main():
 
     from . import state as page_state
     from .analysis import analyse
+    from .ensemble import ensemble_panel
     from .images import images_panel, pairing_settings
     from .inputs import inputs_panel
     from .knots import knot_list, measurement_panel
@@ -68,7 +70,7 @@ def main():
         marking_controls(state, scene, results.focus)
         knot_list(state)
 
-    measurements, images, source, takeaway = st.tabs(TABS)
+    measurements, images, source, takeaway, spread = st.tabs(TABS)
     with measurements:
         measurement_panel(results)
     with images:
@@ -77,3 +79,5 @@ def main():
         source_panel(state, scene, z_source, viewport, settings)
     with takeaway:
         takeaway_panel(state, scene, z_source, results, settings, viewport)
+    with spread:
+        ensemble_panel(state, scene, z_source, results)
