@@ -35,6 +35,7 @@ trustworthy. `external_deflection` adds such a sheet and shear when the user
 knows them.
 """
 
+import functools
 import os
 import warnings
 
@@ -42,10 +43,12 @@ import numpy as np
 import astropy.units as u
 from scipy import fft as sp_fft
 
+from .checks import celestial_wcs
 from .errors import LensviewInputError, MissingMassWarning
 
 __all__ = [
     "DEFAULT_MAX_MEMORY",
+    "deflection_maps_from_convergence",
     "convergence_deflection",
     "external_deflection",
     "fft_memory_bytes",
@@ -197,7 +200,34 @@ def external_deflection(shape, wcs, *, kappa_ext=0.0, shear=(0.0, 0.0), referenc
     return alpha_x.astype(dtype), alpha_y.astype(dtype)
 
 
-def warn_missing_mass(name, external):
+def deflection_maps_from_convergence(kappa, wcs, *, name=None, fill_nan=None, external_kappa=0.0,
+                                     external_shear=(0.0, 0.0), max_memory=DEFAULT_MAX_MEMORY):
+    """The maps behind `DeflectionField.from_convergence`, with the missing-mass warning.
+
+    Returns ``alpha_x, alpha_y`` in arcsec along the map's pixel axes: the
+    deflection of the map's own mass (`convergence_deflection`) plus, when
+    given, a uniform sheet ``external_kappa`` and a constant shear
+    ``external_shear`` about the map centre (`external_deflection`).
+    """
+    alpha_x, alpha_y = convergence_deflection(kappa, wcs, fill_nan=fill_nan, max_memory=max_memory)
+    external = (external_kappa, *external_shear) if np.ndim(external_shear) == 1 \
+        and len(external_shear) == 2 else None
+    if external is None:
+        raise LensviewInputError(
+            f"external_shear must be a pair (gamma1, gamma2), got {external_shear!r}.")
+    if any(_finite(v, "external_kappa / external_shear") != 0 for v in external):
+        ext_x, ext_y = external_deflection(alpha_x.shape, wcs, kappa_ext=external_kappa,
+                                           shear=external_shear, dtype=alpha_x.dtype)
+        alpha_x += ext_x
+        alpha_y += ext_y
+        del ext_x, ext_y
+        _warn_missing_mass(name or "model", True)
+    else:
+        _warn_missing_mass(name or "model", False)
+    return alpha_x, alpha_y
+
+
+def _warn_missing_mass(name, external):
     """The caution every deflection from a convergence cutout carries."""
     hint = ("an external convergence/shear was added as given" if external else
             "pass external_kappa= / external_shear= if the mass outside is known")
@@ -205,7 +235,7 @@ def warn_missing_mass(name, external):
         f"Model {name!r} was built from a convergence map: mass outside the map is missing, so "
         "its deflection differs from the full model's by a smooth field and the curves near "
         f"the map edge are the least trustworthy ({hint}).",
-        MissingMassWarning, stacklevel=3)
+        MissingMassWarning, stacklevel=4)
 
 
 def _forward(kappa, shape, workers):
@@ -244,26 +274,33 @@ def _kernel_product(kappa_hat, shape, map_shape, matrix, component, workers):
     hy, hx = ly // 2, lx // 2
     weight = abs(np.linalg.det(matrix)) / np.pi
     if component == 0:
-        dy = np.arange(hy + 1, dtype=dtype)[:, None]
-        dx = np.arange(1, hx, dtype=dtype)[None, :]
-        quadrant = (weight * dx / (gram[0, 0] * dx * dx + gram[1, 1] * dy * dy)).astype(dtype)
-        spectrum = sp_fft.dct(quadrant, type=1, axis=0, workers=workers, overwrite_x=True)
+        spectrum = _quadrant(np.arange(1, hx), np.arange(hy + 1), gram, weight, dtype, along=1)
+        spectrum = sp_fft.dct(spectrum, type=1, axis=0, workers=workers, overwrite_x=True)
         spectrum = sp_fft.dst(spectrum, type=1, axis=1, workers=workers, overwrite_x=True)
-        product = np.zeros_like(kappa_hat)
+        product = np.empty_like(kappa_hat)
+        product[:, 0] = product[:, hx] = 0
         np.multiply(kappa_hat[:hy + 1, 1:hx], spectrum, out=product[:hy + 1, 1:hx])
         np.multiply(kappa_hat[hy + 1:, 1:hx], spectrum[hy - 1:0:-1], out=product[hy + 1:, 1:hx])
     else:
-        dy = np.arange(1, hy, dtype=dtype)[:, None]
-        dx = np.arange(hx + 1, dtype=dtype)[None, :]
-        quadrant = (weight * dy / (gram[0, 0] * dx * dx + gram[1, 1] * dy * dy)).astype(dtype)
-        spectrum = sp_fft.dst(quadrant, type=1, axis=0, workers=workers, overwrite_x=True)
+        spectrum = _quadrant(np.arange(hx + 1), np.arange(1, hy), gram, weight, dtype, along=0)
+        spectrum = sp_fft.dst(spectrum, type=1, axis=0, workers=workers, overwrite_x=True)
         spectrum = sp_fft.dct(spectrum, type=1, axis=1, workers=workers, overwrite_x=True)
-        product = np.zeros_like(kappa_hat)
+        product = np.empty_like(kappa_hat)
+        product[0] = product[hy] = 0
         np.multiply(kappa_hat[1:hy], spectrum, out=product[1:hy])
         np.multiply(kappa_hat[hy + 1:], spectrum[::-1], out=product[hy + 1:])
         product[hy + 1:] *= -1  # odd along y: H(L - m) = -H(m)
     product *= -1j
     return product
+
+
+def _quadrant(dx, dy, gram, weight, dtype, along):
+    """K = weight * d_along / (d^T G d) on the outer grid of offsets dx (columns), dy (rows)."""
+    dx = dx.astype(dtype)
+    dy = dy.astype(dtype)
+    norm = np.add.outer(dtype.type(gram[1, 1]) * dy * dy, dtype.type(gram[0, 0]) * dx * dx)
+    numerator = dtype.type(weight) * (dx[None, :] if along == 1 else dy[:, None])
+    return np.divide(numerator, norm, out=norm)
 
 
 def _kernel(shape, map_shape, matrix, component, dtype):
@@ -320,7 +357,19 @@ def _difference(values, axis):
     return out
 
 
-def _lattice_constant(gram, reach=48):
+def _lattice_constant(gram):
+    """C(G) = C(G / G_xx) / G_xx; the scale-free part is cached."""
+    scale = float(gram[0, 0])
+    ratios = tuple(round(float(v) / scale, 12) for v in (gram[0, 1], gram[1, 1]))
+    return _scale_free_lattice_constant(ratios) / scale
+
+
+@functools.lru_cache(maxsize=16)
+def _scale_free_lattice_constant(ratios):
+    return _lattice_sum_minus_integral(np.array([[1.0, ratios[0]], [ratios[0], ratios[1]]]))
+
+
+def _lattice_sum_minus_integral(gram, reach=48):
     """C = sum over the lattice square |d|_inf <= R of d d^T/(d^T G d), minus the integral
     over the square of side 2R + 1 it stands for (converged to ~1e-6 at R = 48)."""
     from scipy.integrate import quad
@@ -373,13 +422,9 @@ def _work_dtype(dtype):
 
 
 def _pixel_matrix(wcs):
-    from astropy.wcs import WCS
+    """Pixel offsets to sky-plane offsets (East, North), arcsec per pixel."""
+    return np.asarray(celestial_wcs(wcs, "The convergence map").pixel_scale_matrix, float) * 3600.0
 
-    if not isinstance(wcs, WCS) or not wcs.has_celestial:
-        raise LensviewInputError(
-            "The map needs a celestial WCS (RA/Dec axes) to know its pixel scale; give the WCS "
-            "of the FITS header the map came from.")
-    return np.asarray(wcs.celestial.pixel_scale_matrix, float) * 3600.0
 
 
 def _memory_limit(max_memory):
