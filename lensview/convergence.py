@@ -418,7 +418,7 @@ def _kappa_map(kappa, fill_nan):
 
 
 def _work_dtype(dtype):
-    return np.float32 if np.dtype(dtype) == np.float32 else np.float64
+    return np.dtype(np.float32 if np.dtype(dtype) == np.float32 else np.float64)
 
 
 def _pixel_matrix(wcs):

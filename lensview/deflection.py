@@ -598,13 +598,15 @@ class DeflectionField:
 FROM_HEADER = "header"
 
 
-def load_model(x, y=None, *, z_lens, units=None, z_norm=FROM_HEADER, cosmology=None, name=None):
+def load_model(x, y=None, *, z_lens, units=None, z_norm=FROM_HEADER, cosmology=None, name=None,
+               kind=FROM_HEADER, **convergence_options):
     """A `DeflectionField` from files, reading what the headers say.
 
     Parameters
     ----------
     x, y : str, path, bytes or file-like
-        As for `DeflectionField.from_fits`.
+        As for `DeflectionField.from_fits`; a convergence or potential map is
+        one file (``x``).
     z_lens : float
     units : {"arcsec", "pixel"} or None
         None takes the units from the BUNIT keyword (an error names the
@@ -615,9 +617,24 @@ def load_model(x, y=None, *, z_lens, units=None, z_norm=FROM_HEADER, cosmology=N
         D_ls/D_s = 1; a number is the reference source redshift.
     cosmology, name
         As for `DeflectionField`.
+    kind : {"deflection", "convergence", "potential"} or FROM_HEADER
+        What the file holds; FROM_HEADER reads the LENSMAP keyword
+        (`lensview.mapfiles`; absent: a deflection pair).
+    **convergence_options
+        ``fill_nan``, ``external_kappa``, ``external_shear``, ``max_memory``
+        of `DeflectionField.from_convergence`.
     """
     from .fitsio import read_deflection
+    from .mapfiles import load_scalar_model, map_kind
 
+    kind = map_kind(x, y, kind)
+    if kind != "deflection":
+        return load_scalar_model(x, kind, z_lens=z_lens, z_norm=z_norm, cosmology=cosmology,
+                                 name=name, **convergence_options)
+    if convergence_options:
+        raise LensviewInputError(
+            f"Options {sorted(convergence_options)} apply to convergence maps only, and this "
+            "model is a deflection pair; drop them or give kind='convergence'.")
     maps = read_deflection(x, y, units=units)
     if isinstance(z_norm, str) and z_norm == FROM_HEADER:
         z_norm = maps.header.get("Z_NORM")
