@@ -32,7 +32,8 @@ import astropy.units as u
 from .errors import LensviewInputError
 
 __all__ = ["MAP_KIND_KEYWORD", "MAP_KINDS", "ScalarMap", "map_kind", "read_scalar_map",
-           "read_magnification_map", "load_scalar_model"]
+           "read_magnification_map", "magnification_overlay_on", "load_scalar_model",
+           "OVERLAY_ONLY_REASON"]
 
 #: Header keyword saying what a lens-model file holds.
 MAP_KIND_KEYWORD = "LENSMAP"
@@ -40,6 +41,12 @@ MAP_KIND_KEYWORD = "LENSMAP"
 MAP_KINDS = ("deflection", "convergence", "potential", "magnification")
 #: `map_kind` reads the kind from the header.
 FROM_HEADER = "header"
+
+#: Why a magnification map is shown, never used: for the page and the command line.
+OVERLAY_ONLY_REASON = (
+    "A magnification map alone cannot place critical curves: it has lost the sign of det A "
+    "across the curves and carries no deflection, so curves, ray tracing, counter-images and "
+    "delays cannot follow from it. It is drawn as |\u03bc| contours only.")
 
 _MAGNIFICATION_ONLY = (
     "A magnification map is not enough to place critical curves (it has no sign of det A "
@@ -75,7 +82,11 @@ def map_kind(x, y=None, kind=FROM_HEADER):
     str
     """
     if not (isinstance(kind, str) and kind == FROM_HEADER):
-        return _checked_kind(kind, "kind")
+        chosen = _checked_kind(kind, "kind")
+        if y is not None and chosen != "deflection":
+            raise LensviewInputError(
+                f"A {chosen} model is one file, but two were given; give the single map alone.")
+        return chosen
     from .fitsio import _image_hdus, _open_fits
 
     with _open_fits(x) as (hdul, label):
@@ -129,6 +140,33 @@ def read_magnification_map(source):
             f"The file says {MAP_KIND_KEYWORD} = {declared.upper()}, not MAGNIFICATION; load it as "
             "a lens model instead of an overlay.")
     return read_scalar_map(source, "magnification")
+
+
+def magnification_overlay_on(mu_map, wcs, shape):
+    """|mu| of a magnification map resampled onto another grid, for display only.
+
+    Parameters
+    ----------
+    mu_map : ScalarMap
+        From `read_magnification_map`.
+    wcs : `~astropy.wcs.WCS`
+        Target celestial WCS (e.g. the cutout's, or a crop of it).
+    shape : tuple of int
+        Target (ny, nx).
+
+    Returns
+    -------
+    ndarray
+        |mu| by bilinear resampling (`reproject`), NaN off the map. Good for
+        contours; not a measurement (mu diverges on the curves, which a
+        resampled map smooths over).
+    """
+    from reproject import reproject_interp
+
+    values = np.abs(np.asarray(mu_map.data, dtype=np.float64))
+    resampled, _ = reproject_interp((values, mu_map.wcs), wcs.celestial, shape_out=tuple(shape),
+                                    order="bilinear")
+    return resampled
 
 
 def load_scalar_model(source, kind, *, z_lens, z_norm, cosmology, name, **options):
