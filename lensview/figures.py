@@ -205,7 +205,7 @@ def _draw_magnification_overlay(ax, wcs, shape, mu_map, levels):
 
     mu = magnification_overlay_on(mu_map, wcs, shape)
     ax.contour(np.where(np.isfinite(mu), mu, 0.0), levels=sorted(levels), colors=_OVERLAY_INK,
-               linewidths=0.8, linestyles=(0, (1, 1.5)))
+               linewidths=0.8, linestyles=[(0, (1, 1.5))])
 
 
 def render_source_plane_figure(image, wcs, caustics, traced_candidates=None, *, z_source=None,

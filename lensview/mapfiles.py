@@ -94,7 +94,7 @@ def map_kind(x, y=None, kind=FROM_HEADER):
         declared = next((h[MAP_KIND_KEYWORD] for h in headers if MAP_KIND_KEYWORD in h), None)
     if declared is None:
         return "deflection"
-    found = _checked_kind(str(declared).strip().lower(), f"{MAP_KIND_KEYWORD} in {label}")
+    found = _checked_kind(declared, f"{MAP_KIND_KEYWORD} in {label}")
     if y is not None and found != "deflection":
         raise LensviewInputError(
             f"{label} says {MAP_KIND_KEYWORD} = {declared!r} (a single map) but a second file was "
