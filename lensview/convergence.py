@@ -75,11 +75,12 @@ def padded_shape(shape):
 
 
 def fft_memory_bytes(shape, dtype=np.float32):
-    """Peak working memory (bytes) of `convergence_deflection` for a map.
+    """Upper estimate of the working memory (bytes) of `convergence_deflection`.
 
-    Counts what the implementation holds at once: the transform of kappa,
-    one kernel and its transform, one product / inverse transform, and the
-    two output maps.
+    Counts, generously, what the implementation may hold at once: two
+    half-spectra of the padded grid, two padded real grids, and the two output
+    maps. (Measured peaks are lower: about 0.7 GB for a 4096 x 4096 float32
+    map, whose estimate is 1.2 GB; see bench/bench_convergence.py.)
     """
     real = np.dtype(_work_dtype(dtype))
     ly, lx = padded_shape(shape)
@@ -137,14 +138,19 @@ def convergence_deflection(kappa, wcs, *, fill_nan=None, max_memory=DEFAULT_MAX_
     shape = padded_shape(kappa.shape)
     kappa_hat = _forward(kappa, shape, workers)
     alpha_pix = []
-    for component in (0, 1):
-        product = _kernel_product(kappa_hat, shape, kappa.shape, matrix, component, workers)
-        alpha_pix.append(_inverse(product, shape, kappa.shape, workers))
-        del product
+    product = _kernel_product(kappa_hat, shape, kappa.shape, matrix, 0, workers)
+    alpha_pix.append(_inverse(product, shape, kappa.shape, workers))
+    del product
+    # The second product overwrites kappa's spectrum: one large buffer fewer.
+    product = _kernel_product(kappa_hat, shape, kappa.shape, matrix, 1, workers, out=kappa_hat)
     del kappa_hat
+    alpha_pix.append(_inverse(product, shape, kappa.shape, workers))
+    del product
     _add_lattice_correction(alpha_pix, kappa, matrix)
     scales = np.sqrt((matrix**2).sum(axis=0))  # arcsec per pixel along x and y
-    return alpha_pix[0] * dtype.type(scales[0]), alpha_pix[1] * dtype.type(scales[1])
+    alpha_pix[0] *= dtype.type(scales[0])
+    alpha_pix[1] *= dtype.type(scales[1])
+    return alpha_pix[0], alpha_pix[1]
 
 
 def external_deflection(shape, wcs, *, kappa_ext=0.0, shear=(0.0, 0.0), reference=None,
@@ -253,7 +259,7 @@ def _inverse(product, shape, map_shape, workers):
     return np.array(full[:, :nx])
 
 
-def _kernel_product(kappa_hat, shape, map_shape, matrix, component, workers):
+def _kernel_product(kappa_hat, shape, map_shape, matrix, component, workers, out=None):
     """Spectrum of kappa times the spectrum of one kernel component.
 
     For pixel axes at right angles (G diagonal: square or rectangular pixels,
@@ -261,7 +267,8 @@ def _kernel_product(kappa_hat, shape, map_shape, matrix, component, workers):
     along the other, so its spectrum is -i times a sine transform (type I)
     along one axis and a cosine transform (type I) along the other of one
     quadrant of the kernel. Skewed pixel axes take the general path: the whole
-    kernel through the real FFT.
+    kernel through the real FFT. ``out`` (may be ``kappa_hat`` itself) receives
+    the product on the symmetric path.
     """
     gram = matrix.T @ matrix
     if abs(gram[0, 1]) > 1e-12 * abs(gram).max():
@@ -277,18 +284,18 @@ def _kernel_product(kappa_hat, shape, map_shape, matrix, component, workers):
         spectrum = _quadrant(np.arange(1, hx), np.arange(hy + 1), gram, weight, dtype, along=1)
         spectrum = sp_fft.dct(spectrum, type=1, axis=0, workers=workers, overwrite_x=True)
         spectrum = sp_fft.dst(spectrum, type=1, axis=1, workers=workers, overwrite_x=True)
-        product = np.empty_like(kappa_hat)
-        product[:, 0] = product[:, hx] = 0
+        product = np.empty_like(kappa_hat) if out is None else out
         np.multiply(kappa_hat[:hy + 1, 1:hx], spectrum, out=product[:hy + 1, 1:hx])
         np.multiply(kappa_hat[hy + 1:, 1:hx], spectrum[hy - 1:0:-1], out=product[hy + 1:, 1:hx])
+        product[:, 0] = product[:, hx] = 0
     else:
         spectrum = _quadrant(np.arange(hx + 1), np.arange(1, hy), gram, weight, dtype, along=0)
         spectrum = sp_fft.dst(spectrum, type=1, axis=0, workers=workers, overwrite_x=True)
         spectrum = sp_fft.dct(spectrum, type=1, axis=1, workers=workers, overwrite_x=True)
-        product = np.empty_like(kappa_hat)
-        product[0] = product[hy] = 0
+        product = np.empty_like(kappa_hat) if out is None else out
         np.multiply(kappa_hat[1:hy], spectrum, out=product[1:hy])
         np.multiply(kappa_hat[hy + 1:], spectrum[::-1], out=product[hy + 1:])
+        product[0] = product[hy] = 0
         product[hy + 1:] *= -1  # odd along y: H(L - m) = -H(m)
     product *= -1j
     return product
