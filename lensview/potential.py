@@ -48,7 +48,6 @@ def potential_deflection(psi, wcs):
     """
     psi = potential_map(psi)
     matrix = _pixel_matrix(wcs)
-    ny, nx = psi.shape
     dpsi_dx = np.full(psi.shape, np.nan)
     dpsi_dy = np.full(psi.shape, np.nan)
     dpsi_dx[:, 2:-2] = central_difference_4(psi, 1)

@@ -19,15 +19,16 @@ Z_LENS = 0.4
 Z_SOURCE = 2.0
 
 
-def rectangular_wcs(n_x, n_y, scale_x, scale_y, rotation_deg):
-    """Non-square pixels (scale_x by scale_y arcsec), rotated on the sky."""
+def rectangular_wcs(n_x, n_y, scale_x, scale_y, rotation_deg, skew=0.0):
+    """Non-square pixels (scale_x by scale_y arcsec), rotated on the sky; ``skew``
+    tilts the y axis (pixel axes not at right angles)."""
     wcs = WCS(naxis=2)
     wcs.wcs.ctype = ["RA---TAN", "DEC--TAN"]
     wcs.wcs.crval = [150.0, 2.0]
     wcs.wcs.crpix = [n_x / 2 + 1, n_y / 2 + 1]
     th = np.radians(rotation_deg)
     rotation = np.array([[np.cos(th), -np.sin(th)], [np.sin(th), np.cos(th)]])
-    wcs.wcs.cd = rotation @ np.diag([-scale_x / 3600, scale_y / 3600])
+    wcs.wcs.cd = rotation @ np.array([[-scale_x, skew * scale_y], [0.0, scale_y]]) / 3600
     return wcs
 
 
@@ -54,11 +55,13 @@ def gaussian_lens(shape, wcs, kappa0, sigma_arcsec, centre):
 
 
 @pytest.mark.parametrize("dtype", [np.float64, np.float32])
-@pytest.mark.parametrize("scales, rotation", [((0.05, 0.05), 0.0), ((0.05, 0.05), 33.0),
-                                              ((0.04, 0.065), -21.0)])
-def test_gaussian_deflection_matches_closed_form(dtype, scales, rotation):
+@pytest.mark.parametrize("scales, rotation, skew", [((0.05, 0.05), 0.0, 0.0),
+                                                    ((0.05, 0.05), 33.0, 0.0),
+                                                    ((0.04, 0.065), -21.0, 0.0),
+                                                    ((0.05, 0.05), 12.0, 0.25)])
+def test_gaussian_deflection_matches_closed_form(dtype, scales, rotation, skew):
     shape = (230, 260)
-    wcs = rectangular_wcs(shape[1], shape[0], *scales, rotation)
+    wcs = rectangular_wcs(shape[1], shape[0], *scales, rotation, skew)
     centre = (131.3, 113.6)
     kappa, ex, ey, alpha_pix, _ = gaussian_lens(shape, wcs, 1.4, 0.6, centre)
     ax, ay = convergence_deflection(kappa.astype(dtype), wcs)

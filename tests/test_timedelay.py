@@ -4,7 +4,6 @@ import numpy as np
 import pytest
 import astropy.constants as const
 import astropy.units as u
-from astropy.coordinates import SkyCoord
 from astropy.cosmology import FlatLambdaCDM
 
 import lensview as lv
