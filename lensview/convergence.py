@@ -17,10 +17,12 @@ A plain lattice sum of a kernel singular at d = 0 is off by a local term:
 with kappa(p - d) = kappa(p) - g.d + ..., the sum and the integral of
 (g.d) K(d) differ by w C g, where C = lim [sum_{d != 0} d d^T/(d^T G d) -
 integral of the same over the summed area] is a constant of the lattice
-(-1/2 G^-1 for square pixels). Adding w C grad(kappa) removes that leading
-error (the correction term of the Euler-Maclaurin formula for singular
-integrands; common practice), so the result stays accurate for structure
-only a few pixels wide.
+(-1/2 G^-1 for square pixels) and w = |det M|/pi. Adding w C grad(kappa)
+removes that leading error (the correction term of the Euler-Maclaurin
+formula for singular integrands; common practice), so the result stays
+accurate for structure only a few pixels wide. With central differences for
+the gradient the correction is itself a convolution, so its four taps are
+added to the kernel next to d = 0 and the FFT applies it at no extra cost.
 
 The convolution is linear, not circular: both the map and the kernel are
 zero-padded to at least twice each axis before the real FFTs
@@ -146,7 +148,6 @@ def convergence_deflection(kappa, wcs, *, fill_nan=None, max_memory=DEFAULT_MAX_
     del kappa_hat
     alpha_pix.append(_inverse(product, shape, kappa.shape, workers))
     del product
-    _add_lattice_correction(alpha_pix, kappa, matrix)
     scales = np.sqrt((matrix**2).sum(axis=0))  # arcsec per pixel along x and y
     alpha_pix[0] *= dtype.type(scales[0])
     alpha_pix[1] *= dtype.type(scales[1])
@@ -280,8 +281,10 @@ def _kernel_product(kappa_hat, shape, map_shape, matrix, component, workers, out
     ly, lx = shape
     hy, hx = ly // 2, lx // 2
     weight = abs(np.linalg.det(matrix)) / np.pi
+    taps = _correction_taps(matrix, component)
     if component == 0:
         spectrum = _quadrant(np.arange(1, hx), np.arange(hy + 1), gram, weight, dtype, along=1)
+        spectrum[0, 0] += dtype.type(taps[(1, 0)])  # offset dx = 1, dy = 0
         spectrum = sp_fft.dct(spectrum, type=1, axis=0, workers=workers, overwrite_x=True)
         spectrum = sp_fft.dst(spectrum, type=1, axis=1, workers=workers, overwrite_x=True)
         product = np.empty_like(kappa_hat) if out is None else out
@@ -290,6 +293,7 @@ def _kernel_product(kappa_hat, shape, map_shape, matrix, component, workers, out
         product[:, 0] = product[:, hx] = 0
     else:
         spectrum = _quadrant(np.arange(hx + 1), np.arange(1, hy), gram, weight, dtype, along=0)
+        spectrum[0, 0] += dtype.type(taps[(0, 1)])  # offset dx = 0, dy = 1
         spectrum = sp_fft.dst(spectrum, type=1, axis=0, workers=workers, overwrite_x=True)
         spectrum = sp_fft.dct(spectrum, type=1, axis=1, workers=workers, overwrite_x=True)
         product = np.empty_like(kappa_hat) if out is None else out
@@ -339,29 +343,28 @@ def _kernel(shape, map_shape, matrix, component, dtype):
                 norm[norm == 0] = np.inf  # K(0) = 0
                 numerator = dx if component == 0 else dy
                 np.divide(numerator * weight, norm, out=kernel[rows, cols])
+    for (dx, dy), value in _correction_taps(matrix, component).items():
+        kernel[dy, dx] += dtype.type(value)
+        kernel[-dy, -dx] -= dtype.type(value)
     return kernel
 
 
-def _add_lattice_correction(alpha_pix, kappa, matrix):
-    """alpha += w C grad(kappa), the leading correction of the lattice sum (module notes)."""
-    weight = abs(np.linalg.det(matrix)) / np.pi
-    correction = (weight * _lattice_constant(matrix.T @ matrix)).astype(kappa.dtype)
-    gx = _difference(kappa, axis=1)
-    gy = _difference(kappa, axis=0)
-    alpha_pix[0] += correction[0, 0] * gx + correction[0, 1] * gy
-    alpha_pix[1] += correction[1, 0] * gx + correction[1, 1] * gy
+def _correction_taps(matrix, component):
+    """Stencil taps of w C grad(kappa) for one component (module notes).
 
+    With central differences g = (kappa(p + e) - kappa(p - e))/2 along each
+    pixel axis e, the correction is a convolution whose kernel has the values
+    -/+ (w C)_{c,e} / 2 at offsets +/- e; it is added to K there, so the FFT
+    applies it (outside the map kappa is zero, as for the convolution itself).
 
-def _difference(values, axis):
-    """Central differences (one-sided at the edges), in the map's precision."""
-    out = np.empty_like(values)
-    a = np.moveaxis(values, axis, 0)
-    o = np.moveaxis(out, axis, 0)
-    np.subtract(a[2:], a[:-2], out=o[1:-1])
-    o[1:-1] *= 0.5
-    o[0] = a[1] - a[0]
-    o[-1] = a[-1] - a[-2]
-    return out
+    Returns
+    -------
+    dict
+        (dx, dy) -> value, for the offsets (1, 0) and (0, 1); the offsets
+        (-1, 0) and (0, -1) take the opposite values.
+    """
+    correction = abs(np.linalg.det(matrix)) / np.pi * _lattice_constant(matrix.T @ matrix)
+    return {(1, 0): -0.5 * correction[component, 0], (0, 1): -0.5 * correction[component, 1]}
 
 
 def _lattice_constant(gram):
