@@ -11,7 +11,7 @@ from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 
-BENCHMARKS = ["bench_curves", "bench_measure", "bench_counterparts", "bench_app", "bench_ensemble"]
+BENCHMARKS = ["bench_curves", "bench_measure", "bench_counterparts", "bench_app", "bench_ensemble", "bench_convergence"]
 
 
 def main(names=None):

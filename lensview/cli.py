@@ -23,7 +23,7 @@ import numpy as np
 from astropy.coordinates import SkyCoord
 
 from .checks import H0_RANGE, OM0_RANGE, flat_cosmology
-from .errors import LensviewInputError
+from .errors import LensviewInputError, MissingMassWarning
 
 __all__ = ["main", "build_parser"]
 
@@ -32,7 +32,19 @@ def _add_models(parser):
     group = parser.add_argument_group("lens models")
     group.add_argument("--model", action="append", required=True, metavar="FILE[,FILE_Y]",
                        help="deflection model: two files 'x.fits,y.fits', or one file holding "
-                            "two image HDUs or a two-plane cube; repeat for several models")
+                            "two image HDUs or a two-plane cube; or one convergence or potential "
+                            "map (see --map-kind); repeat for several models")
+    group.add_argument("--map-kind", action="append", default=[],
+                       choices=["deflection", "convergence", "potential"],
+                       help="what each --model file holds (default: the files' LENSMAP keyword, "
+                            "else a deflection pair); one value applies to all")
+    group.add_argument("--fill-nan", type=float, default=None, metavar="KAPPA",
+                       help="convergence models: value for NaN cells (default: refuse them)")
+    group.add_argument("--external-kappa", type=float, default=0.0, metavar="KAPPA",
+                       help="convergence models: uniform convergence added for mass outside the map")
+    group.add_argument("--external-shear", type=float, nargs=2, default=(0.0, 0.0),
+                       metavar=("GAMMA1", "GAMMA2"),
+                       help="convergence models: constant shear added (East/North axes)")
     group.add_argument("--model-name", action="append", default=[], metavar="NAME",
                        help="name of each model, in the order of --model")
     group.add_argument("--units", action="append", default=[], choices=["arcsec", "pixel"],
@@ -86,22 +98,41 @@ def _cosmology(args):
 def load_models(args):
     """DeflectionFields from the model options of a parsed command line."""
     from .lens.loading import FROM_HEADER, load_model
+    from .io.mapfiles import map_kind
 
     n = len(args.model)
+    kinds = _per_model(args.map_kind, n, FROM_HEADER, "--map-kind")
     names = _per_model(args.model_name, n, None, "--model-name") if args.model_name else [None] * n
     units = _per_model(args.units, n, None, "--units")
     norms = _per_model(args.z_norm, n, FROM_HEADER, "--z-norm")
     cosmology = _cosmology(args)
     fields = []
-    for k, (spec, name, unit, z_norm) in enumerate(zip(args.model, names, units, norms)):
+    for k, (spec, name, unit, z_norm, kind) in enumerate(zip(args.model, names, units, norms,
+                                                              kinds)):
         paths = [p for p in spec.split(",") if p]
         if len(paths) not in (1, 2):
             raise LensviewInputError(f"--model {spec!r}: give one file or two files separated by a comma.")
         _progress(f"loading model {k + 1}/{n}: {spec}")
         if z_norm == _UNIT_NORMALISATION:
             z_norm = None
-        field = load_model(*paths, z_lens=args.z_lens, units=unit, z_norm=z_norm,
-                           cosmology=cosmology, name=name or Path(paths[0]).stem)
+        kind = map_kind(*paths, kind=kind)
+        options = {}
+        if kind == "convergence":
+            options = dict(fill_nan=args.fill_nan, external_kappa=args.external_kappa,
+                           external_shear=tuple(args.external_shear))
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always", MissingMassWarning)
+            field = load_model(*paths, z_lens=args.z_lens, units=unit, z_norm=z_norm,
+                               cosmology=cosmology, name=name or Path(paths[0]).stem, kind=kind,
+                               **options)
+        if kind != "deflection":
+            _progress(f"  {kind} map turned into deflections")
+        for warning in caught:
+            if issubclass(warning.category, MissingMassWarning):
+                _progress(f"  caution: {warning.message}")
+            else:
+                warnings.warn_explicit(warning.message, warning.category, warning.filename,
+                                       warning.lineno)
         if field.z_norm is not None:
             _progress(f"  maps made for a source at z = {field.z_norm}")
         fields.append(field)
@@ -212,6 +243,12 @@ def cmd_images(args):
         images["model"] = field.name
         tables.append(images)
         print(f"{field.name}: {len(images)} image(s) of the source")
+        for row in images[np.argsort(np.where(images["arrival_order"] > 0,
+                                              images["arrival_order"], len(images) + 1))]:
+            delay = float(row["time_delay_days"])
+            when = "first" if row["arrival_order"] == 1 else (
+                f"{delay:.2f} days later" if np.isfinite(delay) else "delay unknown")
+            print(f"  image {row['image']}{' (the knot)' if row['is_input'] else ''}: {when}")
     from astropy.table import vstack
 
     write_table(vstack(tables, metadata_conflicts="silent"), args.output)
@@ -228,6 +265,12 @@ def cmd_pair(args):
     table = pair_counterparts(coords, fields, args.z_source, tolerance=tolerance)
     write_table(table, args.output)
     print(f"wrote {len(table)} proposed pair(s) to {args.output}")
+    for row in table:
+        delay = float(row["time_delay_days"])
+        if np.isfinite(delay):
+            lead = labels[int(row["leading"])]
+            print(f"  {labels[row['i']]} - {labels[row['j']]} ({row['model']}): {lead} leads by "
+                  f"{abs(delay):.2f} days")
 
 
 def cmd_figure(args):
@@ -244,8 +287,15 @@ def cmd_figure(args):
     candidates = None
     if args.candidates:
         _, _, candidates = _candidates(args.candidates, cutout.wcs)
+    overlay = None
+    if args.magnification_map:
+        from .io.mapfiles import OVERLAY_ONLY_REASON, read_magnification_map
+
+        overlay = read_magnification_map(args.magnification_map)
+        _progress(OVERLAY_ONLY_REASON)
     fig = render_field_figure(cutout.data, cutout.wcs, curves=curves, candidates=candidates,
-                              z_lens=args.z_lens, cosmology=_cosmology(args), stretch=args.stretch)
+                              z_lens=args.z_lens, cosmology=_cosmology(args), stretch=args.stretch,
+                              magnification_map=overlay)
     save_figure(fig, args.output, dpi=args.dpi)
     print(f"wrote {args.output}")
 
@@ -407,6 +457,9 @@ def build_parser():
     p.add_argument("--candidates", help="candidate list to mark")
     p.add_argument("--stretch", default="asinh", choices=["linear", "sqrt", "log", "asinh"])
     p.add_argument("--dpi", type=int, default=300)
+    p.add_argument("--magnification-map", metavar="FILE",
+                   help="a magnification map (FITS) drawn as |mu| = 3, 10, 30 contours only: it "
+                        "cannot place critical curves")
     p.add_argument("-o", "--output", required=True, help="output .png or .pdf")
     p.set_defaults(run=cmd_figure)
 

@@ -11,3 +11,7 @@ class LensviewInputError(ValueError):
 
 class OutsideFootprintWarning(UserWarning):
     """Positions fell outside a lens model's footprint and were given NaN."""
+
+
+class MissingMassWarning(UserWarning):
+    """A deflection built from a convergence map lacks the mass outside the map."""

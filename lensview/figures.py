@@ -47,6 +47,9 @@ _STYLE_NAMES = {("image", "tangential"): "tangential critical curve",
                 ("image", "radial"): "radial critical curve",
                 ("source", "tangential"): "tangential caustic", ("source", "radial"): "radial caustic"}
 _INK = "#1A1A1A"
+_OVERLAY_INK = "#7A3E9D"
+#: |mu| levels of a magnification map drawn as an overlay.
+MU_OVERLAY_LEVELS = (3.0, 10.0, 30.0)
 _NEUTRAL = "#4D4D4D"
 _HALO = [patheffects.withStroke(linewidth=2.2, foreground="white")]
 _THIN_HALO = [patheffects.withStroke(linewidth=1.8, foreground="white")]
@@ -132,7 +135,7 @@ def model_colours(models):
 # ---------------------------------------------------------------------------- figures
 def render_field_figure(data, wcs, *, curves=(), candidates=None, pairs=None, counterimages=None,
                         z_lens=None, cosmology=None, stretch="asinh", limits="zscale", cmap="gray_r",
-                        title=None):
+                        title=None, magnification_map=None, mu_levels=MU_OVERLAY_LEVELS):
     """The cutout with curves, candidates, pair links and a scale bar.
 
     Parameters
@@ -159,6 +162,11 @@ def render_field_figure(data, wcs, *, curves=(), candidates=None, pairs=None, co
     cmap : str
         Matplotlib colour map name.
     title : str, optional
+    magnification_map : `~lensview.io.mapfiles.ScalarMap`, optional
+        A magnification map from a file (`~lensview.io.mapfiles.read_magnification_map`),
+        drawn as |mu| contours only: it cannot place critical curves.
+    mu_levels : sequence of float
+        |mu| levels of those contours.
 
     Returns
     -------
@@ -166,6 +174,9 @@ def render_field_figure(data, wcs, *, curves=(), candidates=None, pairs=None, co
     """
     data, wcs = _image_and_wcs(data, wcs, "cutout")
     fig, ax = _image_axes(data, wcs, stretch, limits, cmap)
+    has_overlay = magnification_map is not None and len(mu_levels) > 0
+    if has_overlay:
+        _draw_magnification_overlay(ax, wcs, data.shape, magnification_map, mu_levels)
     colours = _draw_curves(ax, wcs, curves)
     candidate_table = None
     if candidates is not None:
@@ -182,10 +193,19 @@ def render_field_figure(data, wcs, *, curves=(), candidates=None, pairs=None, co
     if has_counterimages:
         _draw_counterimages(ax, wcs, counterimages, colours)
     _scale_bar(ax, wcs, data.shape, z_lens, cosmology, "lens")
-    _legend(ax, curves, colours, candidate_table is not None, has_counterimages)
+    _legend(ax, curves, colours, candidate_table is not None, has_counterimages,
+            mu_levels=mu_levels if has_overlay else ())
     if title:
         ax.set_title(title)
     return fig
+
+
+def _draw_magnification_overlay(ax, wcs, shape, mu_map, levels):
+    from .io.mapfiles import magnification_overlay_on
+
+    mu = magnification_overlay_on(mu_map, wcs, shape)
+    ax.contour(np.where(np.isfinite(mu), mu, 0.0), levels=sorted(levels), colors=_OVERLAY_INK,
+               linewidths=0.8, linestyles=[(0, (1, 1.5))])
 
 
 def render_source_plane_figure(image, wcs, caustics, traced_candidates=None, *, z_source=None,
@@ -364,8 +384,13 @@ def _significant(value, digits=3):
     return f"{value:.{decimals}f}"
 
 
-def _legend(ax, curves, colours, has_candidates, has_counterimages, candidate_name="candidate"):
+def _legend(ax, curves, colours, has_candidates, has_counterimages, candidate_name="candidate",
+            mu_levels=()):
     handles = [Line2D([], [], color=colour, linewidth=2.0, label=name) for name, colour in colours.items()]
+    if len(mu_levels):
+        handles.append(Line2D([], [], color=_OVERLAY_INK, linestyle=(0, (1, 1.5)), linewidth=0.8,
+                              label="|\u03bc| = " + ", ".join(f"{v:g}" for v in sorted(mu_levels))
+                              + " (map from file, overlay only)"))
     present = []
     for curve in curves:
         key = (curve.plane, curve.kind)

@@ -545,3 +545,54 @@ def test_uploaded_cutout_and_models_are_used():
                                      cosmology=demo.cosmology)
     np.testing.assert_allclose(shown_table(app)["offset (arcsec)"].astype(float),
                                np.asarray(expected["offset_arcsec"]), atol=6e-5)
+
+
+def table_with(app, title):
+    return next(t.value for t in app.table if title in t.value.columns)
+
+
+def test_counter_image_table_shows_the_library_delays():
+    import lensview as lv
+
+    app = run_page()
+    scene = app.session_state["lv_scene"]
+    clicked = click_on(app, demo_knot(scene, 0), stamp=1)
+    shown = table_with(app, "delay after the first image (days)")
+    expected = [lv.predict_counterimages(clicked, f, scene.z_source) for f in scene.fields]
+    delays = np.concatenate([np.asarray(t["time_delay_days"]) for t in expected])
+    np.testing.assert_allclose(shown["delay after the first image (days)"].astype(float),
+                               delays, atol=6e-3)
+    orders = np.concatenate([np.asarray(t["arrival_order"]) for t in expected])
+    assert list(shown["arrives"].astype(int)) == list(orders)
+    assert any("scale as 1/H0" in c.value for c in app.caption)
+
+
+def test_convergence_upload_and_magnification_overlay():
+    app = run_page()
+    app.radio(key="lv_source").set_value("My files")
+    run_page(app)
+    n = 120
+    wcs = small_wcs((n, n), scale_arcsec=0.06, rotation_deg=0.0)
+    y, x = np.mgrid[0:n, 0:n].astype(float)
+    kappa = (1.5 * np.exp(-((x - 60.2) ** 2 + (y - 59.7) ** 2) / (2 * 12.0**2))).astype(np.float32)
+    uploader(app, "cutout").set_value(("cutout.fits", fits_bytes(kappa, wcs), "application/fits"))
+    run_page(app)
+    uploader(app, "model_0").set_value([("kappa.fits", fits_bytes(kappa, wcs), "application/fits")])
+    run_page(app)
+    # Without LENSMAP the single map is refused as a deflection pair ...
+    assert any("single 2-D map" in e.value for e in app.error)
+    # ... and read as a convergence once the user says so, with the missing-mass caution.
+    app.selectbox(key="lv_kind_0").set_value("convergence (\u03ba)")
+    run_page(app)
+    assert not app.error, [e.value for e in app.error]
+    scene = app.session_state["lv_scene"]
+    assert scene.key.startswith("files") and scene.notes
+    assert any("mass outside the map is missing" in w.value for w in app.warning)
+    curves = scene.fields[0].critical_curves(float(app.slider(key="lv_z_source").value))
+    assert any(c.kind == "tangential" for c in curves)
+    # A magnification map as an overlay: drawn, with the reason it is only drawn.
+    mu = np.abs(scene.fields[0].grid_maps(2.0)["mu"]).astype(np.float32)
+    uploader(app, "mu_overlay").set_value(("mu.fits", fits_bytes(mu, wcs), "application/fits"))
+    run_page(app)
+    assert not app.error, [e.value for e in app.error]
+    assert any("cannot place critical curves" in c.value for c in app.caption)

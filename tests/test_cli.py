@@ -180,3 +180,76 @@ def test_units_and_normalisation_come_from_the_headers(files, tmp_path, capsys):
                    "--candidates", str(tmp / "knots.ecsv"), "-o", str(tmp_path / "bare.ecsv")])
     assert status == 2
     assert "BUNIT" in capsys.readouterr().err
+
+
+def test_convergence_model_gives_images_with_delays_and_pairs(files, tmp_path, capsys):
+    tmp, field, coords = files
+    n = 200
+    wcs = make_wcs(n, n, scale_arcsec=0.05, rotation_deg=20)
+    y, x = np.mgrid[0:n, 0:n].astype(float)
+    # A Gaussian convergence (SEF 1992, sec. 8.1) strong enough for a tangential curve.
+    kappa = 2.0 * np.exp(-((x - 100.3) ** 2 + (y - 99.6) ** 2) / (2 * 16.0**2))
+    header = wcs.to_header()
+    header["LENSMAP"] = "CONVERGENCE"
+    fits.writeto(tmp_path / "kappa.fits", kappa.astype(np.float32), header)
+    knot = wcs.pixel_to_world(100.3 + 22.0, 99.6 + 3.0)
+    args = ["--model", str(tmp_path / "kappa.fits"), "--z-lens", str(Z_LENS),
+            "--z-source", str(Z_SOURCE)]
+    out = tmp_path / "images.ecsv"
+    assert main(["images", *args, "--ra", str(knot.ra.deg), "--dec", str(knot.dec.deg),
+                 "-o", str(out)]) == 0
+    captured = capsys.readouterr()
+    assert "mass outside the map is missing" in captured.err
+    assert "days later" in captured.out and "first" in captured.out
+    table = Table.read(out)
+    assert table["time_delay_days"].unit == u.day
+    assert sorted(table["arrival_order"]) == list(range(1, len(table) + 1))
+    with pytest.warns(lv.MissingMassWarning):
+        direct = lv.DeflectionField.from_convergence(kappa.astype(np.float32), wcs, z_lens=Z_LENS)
+    expected = lv.predict_counterimages(knot, direct, Z_SOURCE)
+    np.testing.assert_allclose(np.sort(table["time_delay_days"]),
+                               np.sort(expected["time_delay_days"]), rtol=1e-4, atol=1e-3)
+    # Two images of the knot, as a knot list: the pair carries their delay.
+    images = Table({"ra": table["ra"], "dec": table["dec"],
+                    "label": [f"k{k}" for k in range(len(table))]})
+    images.write(tmp_path / "images_as_knots.ecsv")
+    pairs_out = tmp_path / "pairs.ecsv"
+    assert main(["pair", *args, "--candidates", str(tmp_path / "images_as_knots.ecsv"),
+                 "-o", str(pairs_out)]) == 0
+    pairs = Table.read(pairs_out)
+    assert len(pairs) >= 1 and "time_delay_days" in pairs.colnames and "leading" in pairs.colnames
+    assert "leads by" in capsys.readouterr().out
+
+
+def test_map_kind_override_and_bad_convergence(files, tmp_path, capsys):
+    n = 64
+    wcs = make_wcs(n, n)
+    kappa = np.full((n, n), 0.2, np.float32)
+    kappa[10, 10] = np.nan
+    fits.writeto(tmp_path / "holey.fits", kappa, wcs.to_header())
+    common = ["--z-lens", str(Z_LENS), "--z-source", str(Z_SOURCE), "-o", str(tmp_path / "c.ecsv")]
+    status = main(["curves", "--model", str(tmp_path / "holey.fits"), "--map-kind", "convergence",
+                   *common])
+    err = capsys.readouterr().err
+    assert status == 2 and "fill_nan" in err and "Traceback" not in err
+    status = main(["curves", "--model", str(tmp_path / "holey.fits"), "--map-kind", "convergence",
+                   "--fill-nan", "0", *common])
+    assert status == 0
+
+
+def test_figure_draws_a_magnification_overlay(files, tmp_path, capsys):
+    tmp, field, coords = files
+    mu = np.abs(field.grid_maps(Z_SOURCE)["mu"])
+    header = field.wcs.to_header()
+    header["LENSMAP"] = "MAGNIFICATION"
+    fits.writeto(tmp_path / "mu.fits", mu.astype(np.float32), header)
+    out = tmp_path / "figure.png"
+    assert main(["figure", *model_args(tmp)[:6], "--z-lens", str(Z_LENS), "--z-source",
+                 str(Z_SOURCE), "--cutout", str(tmp / "cutout.fits"), "--magnification-map",
+                 str(tmp_path / "mu.fits"), "--dpi", "60", "-o", str(out)]) == 0
+    assert out.stat().st_size > 1000
+    assert "cannot place critical curves" in capsys.readouterr().err
+    # The same map given as a model is refused, with the reason.
+    status = main(["curves", "--model", str(tmp_path / "mu.fits"), "--z-lens", str(Z_LENS),
+                   "--z-source", str(Z_SOURCE), "-o", str(tmp_path / "c.ecsv")])
+    assert status == 2 and "not enough to place critical curves" in capsys.readouterr().err

@@ -28,6 +28,7 @@ from astropy.table import Table
 from ..checks import positive_angle
 from ..lens.stencils import TILE
 from ..errors import LensviewInputError
+from ..lens.timedelay import arrival_times
 
 #: Cells per side of the blocks used to pre-select where images can be.
 BLOCK = 16
@@ -78,7 +79,12 @@ def predict_counterimages(coord, field, z_source, *, psf_fwhm=None):
         expected flux relative to the knot), ``separation_arcsec`` (from the
         knot), ``residual_mas`` (source-plane residual of the lens equation)
         and, with ``psf_fwhm``, ``within_psf`` (a counter-image closer to the
-        knot than the FWHM, i.e. blended with it).
+        knot than the FWHM, i.e. blended with it), ``time_delay_days`` (after
+        the first-arriving image: 0 for it, positive for later ones; NaN when
+        no clear path joins the images) and ``arrival_order`` (1 first, 2
+        next, ...; 0 unknown). Delays come from the Fermat potential (see
+        `lensview.lens.timedelay`): only differences of psi matter, and they scale
+        as 1/H0 and with the model's cosmology.
         ``meta`` holds ``model``, ``z_source``, ``source_ra``, ``source_dec``
         (deg), ``n_images``, ``nearest_separation_arcsec`` (to the nearest
         counter-image, NaN without one), ``dropped`` (roots discarded at
@@ -145,6 +151,10 @@ def predict_counterimages(coord, field, z_source, *, psf_fwhm=None):
     table["mu_ratio"] = np.abs(mu[order] / mu[0])
     table["separation_arcsec"] = separation[order] * u.arcsec
     table["residual_mas"] = residual[order] * u.mas
+    delays, arrival = arrival_times(field, roots[order, 0], roots[order, 1], z_source, beta=beta)
+    table["time_delay_days"] = delays.to(u.day)
+    table["arrival_order"] = arrival
+    table["time_delay_days"].info.format = ".3f"
     for name in ("ra", "dec"):
         table[name].info.format = ".7f"
 

@@ -16,6 +16,7 @@ from scipy.optimize import linear_sum_assignment
 from ..checks import positive_angle
 from ..errors import LensviewInputError
 from ..geometry import nearest_on_polylines
+from ..lens.timedelay import pair_time_delay
 
 
 #: Default source-plane tolerance for pairing.
@@ -92,7 +93,11 @@ def pair_counterparts(coords, field_or_fields, z_source, *, tolerance=None, flux
         ``tolerance_arcsec``, ``separation_arcsec`` (image plane),
         ``midpoint_offset_arcsec``, ``curve_kind`` (of the nearest curve),
         ``curve_between``, ``parity_i``, ``parity_j``, ``mu_i``, ``mu_j``,
-        ``n_models`` (how many models chose the pair) and, with fluxes,
+        ``n_models`` (how many models chose the pair), ``time_delay_days``
+        (t_j - t_i: positive when knot i leads; the two knots taken as images
+        of one source at the mean of their traced positions; see
+        `lensview.lens.timedelay`, delays scale as 1/H0), ``leading`` (the knot
+        seen first, i or j; -1 if unknown) and, with fluxes,
         ``flux_ratio`` (F_i/F_j) and ``expected_ratio`` (|mu_i/mu_j|); with
         a PSF, ``resolved``. ``meta`` holds ``z_source``, ``models``,
         ``max_score`` and ``unpaired`` (model name -> knots left alone).
@@ -132,6 +137,8 @@ def pair_counterparts(coords, field_or_fields, z_source, *, tolerance=None, flux
 
     per_model = [_score_pairs(m, tol, flux, flux_error, position_scale, max_score) for m in models]
     chosen = [_one_to_one(s["score"], s["parity"], max_score) for s in per_model]
+    for fld, scores, pairs in zip(fields, per_model, chosen):
+        scores["delay"] = _pair_delays(coords, fld, z_source, pairs)
     votes = {}
     for pairs in chosen:
         for pair in pairs:
@@ -181,6 +188,15 @@ def _model_view(coords, field, z_source):
         closed=[c.closed for c in curves],
         kinds=[c.kind for c in curves],
     )
+
+
+def _pair_delays(coords, field, z_source, pairs):
+    """t_j - t_i (days) of each chosen pair, the two knots taken as images of one source."""
+    delay = np.full((len(coords), len(coords)), np.nan)
+    x, y = field.sky_to_pixels(coords)
+    for i, j in pairs:
+        delay[i, j] = pair_time_delay(field, x[[i, j]], y[[i, j]], z_source).to_value(u.day)
+    return delay
 
 
 def _source_spread(models):
@@ -289,6 +305,9 @@ def _pair_row(name, i, j, scores, n_models, flux):
         parity_i=int(np.sign(mu_i)), parity_j=int(np.sign(mu_j)), mu_i=mu_i, mu_j=mu_j,
         n_models=int(n_models),
     )
+    delays = [s["delay"][i, j] for s in scores if np.isfinite(s["delay"][i, j])]
+    row["time_delay_days"] = float(np.median(delays)) if delays else np.nan
+    row["leading"] = (i if row["time_delay_days"] >= 0 else j) if delays else -1
     if flux is not None:
         row.update(flux_ratio=median("flux_ratio"), expected_ratio=median("expected"))
     return row
@@ -298,11 +317,11 @@ def _pair_table(rows, with_flux, fwhm):
     names = ["i", "j", "model", "score", "source_term", "curve_term", "flux_term",
              "source_sep_arcsec", "tolerance_arcsec", "separation_arcsec",
              "midpoint_offset_arcsec", "curve_kind", "curve_between", "parity_i", "parity_j",
-             "mu_i", "mu_j", "n_models"]
+             "mu_i", "mu_j", "n_models", "time_delay_days", "leading"]
     if with_flux:
         names += ["flux_ratio", "expected_ratio"]
     dtypes = {"i": int, "j": int, "model": str, "curve_kind": str, "curve_between": bool,
-              "parity_i": int, "parity_j": int, "n_models": int}
+              "parity_i": int, "parity_j": int, "n_models": int, "leading": int}
     table = Table()
     for name in names:
         values = [row[name] for row in rows]
@@ -310,6 +329,7 @@ def _pair_table(rows, with_flux, fwhm):
             else np.zeros(0, dtype=dtypes.get(name, float))
         if name.endswith("_arcsec"):
             table[name].unit = u.arcsec
+    table["time_delay_days"].unit = u.day
     if fwhm is not None:
         table["resolved"] = np.asarray(table["separation_arcsec"]) >= fwhm.to_value(u.arcsec)
     return table

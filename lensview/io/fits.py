@@ -545,7 +545,9 @@ def _auto_layout(hdul, label):
         raise LensviewInputError(
             f"{_start(label)} holds a single 2-D map ({_inventory(hdul)}); a deflection model "
             "needs two components. Give the y map as a second file, or a file with "
-            "two image HDUs or a cube of two planes."
+            "two image HDUs or a cube of two planes; if the map is a convergence or a "
+            "potential, say so (header keyword LENSMAP, kind= of load_model, --map-kind, or "
+            "the page's 'Map holds')."
         )
     found = _inventory(hdul) if images else "no image data"
     raise LensviewInputError(

@@ -171,6 +171,8 @@ class DeflectionField:
         self._coarse_terms = None
         self._curve_cache = {}
         self._caustic_cache = {}
+        #: Lensing potential (arcsec^2, unscaled, on the map grid) when the model came as one.
+        self.potential = None
         self._check_not_empty()
 
     # ------------------------------------------------------------------ construction
@@ -193,6 +195,60 @@ class DeflectionField:
             name = getattr(maps, "name", None)
         return cls(maps.alpha_x, maps.alpha_y, maps.wcs, units=maps.units,
                    z_lens=z_lens, z_norm=z_norm, cosmology=cosmology, name=name)
+
+    @classmethod
+    def from_convergence(cls, kappa, wcs, *, z_lens, z_norm=None, cosmology=None, name=None,
+                         fill_nan=None, external_kappa=0.0, external_shear=(0.0, 0.0),
+                         max_memory=None):
+        """Build a field from a convergence (kappa) map, by zero-padded FFT convolution.
+
+        Mass outside the map is missing (a `~lensview.errors.MissingMassWarning`
+        says so): the deflection differs from the full model's by a smooth
+        field, and curves near the map edge are the least trustworthy. See
+        `lensview.lens.convergence`.
+
+        Parameters
+        ----------
+        kappa : array_like
+            2-D convergence, normalised like a deflection map (``z_norm``).
+        wcs : `~astropy.wcs.WCS`
+            Celestial WCS of the map.
+        z_lens, z_norm, cosmology, name
+            As for `DeflectionField`.
+        fill_nan : float or None
+            Value for NaN cells; None refuses maps with NaNs.
+        external_kappa : float
+            Uniform convergence added (a mass sheet), at the normalisation of the map.
+        external_shear : (float, float)
+            Constant shear (gamma1, gamma2) on the East/North axes, added.
+        max_memory : `~astropy.units.Quantity`, float or None
+            Working-memory limit of the FFT (None: 4 GB).
+        """
+        from .convergence import DEFAULT_MAX_MEMORY, deflection_maps_from_convergence
+
+        alpha_x, alpha_y = deflection_maps_from_convergence(
+            kappa, wcs, name=name, fill_nan=fill_nan, external_kappa=external_kappa,
+            external_shear=external_shear,
+            max_memory=DEFAULT_MAX_MEMORY if max_memory is None else max_memory)
+        return cls(alpha_x, alpha_y, wcs, units="arcsec", z_lens=z_lens, z_norm=z_norm,
+                   cosmology=cosmology, name=name)
+
+    @classmethod
+    def from_potential(cls, psi, wcs, *, z_lens, z_norm=None, cosmology=None, name=None):
+        """Build a field from a lensing-potential map (arcsec^2 on the map's grid).
+
+        The deflection is grad psi by fourth-order differences (two edge cells
+        on each side have none); psi is kept as ``potential`` for time delays.
+        See `lensview.lens.potential`.
+        """
+        from .potential import potential_deflection, potential_map
+
+        psi = potential_map(psi)
+        alpha_x, alpha_y = potential_deflection(psi, wcs)
+        field = cls(alpha_x, alpha_y, wcs, units="arcsec", z_lens=z_lens, z_norm=z_norm,
+                    cosmology=cosmology, name=name)
+        field.potential = psi
+        return field
 
     def _check_not_empty(self):
         sample = np.asarray(self._alpha[0][::COARSE_STRIDE, ::COARSE_STRIDE])
@@ -504,8 +560,8 @@ class DeflectionField:
 
         Returns
         -------
-        `~lensview.curves.CurveSet`
-            List of `~lensview.curves.Curve` (``kind`` "tangential" or
+        `~lensview.lens.curves.CurveSet`
+            List of `~lensview.lens.curves.Curve` (``kind`` "tangential" or
             "radial", ``sky`` in ICRS, ``closed``, ``model``); loops dropped
             as artefacts of singular centres are listed in ``.dropped``.
         """

@@ -19,6 +19,8 @@ _IMAGE_COLUMNS = (
     ("mu_ratio", "flux relative to the knot", "{:.2f}"),
     ("separation_arcsec", "separation (arcsec)", "{:.3f}"),
     ("within_psf", "blended with the knot", None),
+    ("arrival_order", "arrives", "{:d}"),
+    ("time_delay_days", "delay after the first image (days)", "{:.2f}"),
 )
 _PAIR_COLUMNS = (
     ("knot_i", "knot", None),
@@ -31,7 +33,12 @@ _PAIR_COLUMNS = (
     ("midpoint_offset_arcsec", "midpoint to curve (arcsec)", "{:.3f}"),
     ("curve_between", "curve between", None),
     ("n_models", "models choosing it", "{:d}"),
+    ("leading_knot", "seen first", None),
+    ("time_delay_days", "delay (days)", "{:.2f}"),
 )
+_DELAY_NOTE = ("Delays come from the Fermat potential of each model (only differences of the "
+               "lensing potential matter); they scale as 1/H0 and with the chosen cosmology. "
+               "\u201carrives\u201d 1 is the first image to show a change of the source.")
 
 
 def pairing_settings(state):
@@ -65,6 +72,7 @@ def images_panel(state, results, models):
     if results.counterimages is not None and len(results.counterimages):
         st.table(formatted(results.counterimages, _IMAGE_COLUMNS), border="horizontal",
                  hide_index=True)
+        st.caption(_DELAY_NOTE)
     st.markdown("**Proposed mirrored pairs**")
     if results.pairs is None:
         st.caption("Pairs need at least two marked knots.")
@@ -82,6 +90,7 @@ def images_panel(state, results, models):
     pairs = results.pairs.copy()
     pairs["knot_i"] = [labels[int(i)] for i in pairs["i"]]
     pairs["knot_j"] = [labels[int(j)] for j in pairs["j"]]
+    pairs["leading_knot"] = [labels[int(k)] if k >= 0 else "\u2013" for k in pairs["leading"]]
     st.table(formatted(pairs, _PAIR_COLUMNS), border="horizontal", hide_index=True)
     unpaired = results.pairs.meta.get("unpaired", {})
     alone = sorted({labels[k] for ks in unpaired.values() for k in ks

@@ -12,6 +12,7 @@ showing the last field that loaded, and the marked knots are untouched.
 
 import hashlib
 import io
+import warnings
 from dataclasses import dataclass, field as dataclass_field
 from pathlib import Path
 
@@ -19,7 +20,7 @@ import streamlit as st
 
 from ..lens.loading import FROM_HEADER, load_model
 from ..checks import H0_RANGE, OM0_RANGE, flat_cosmology
-from ..errors import LensviewInputError
+from ..errors import LensviewInputError, MissingMassWarning
 
 __all__ = ["Scene", "HeldFile", "inputs_panel", "demo_scene", "files_scene", "upload_slot",
            "held_files", "cosmology_from_choice"]
@@ -31,6 +32,9 @@ PLANCK = "Planck18"
 FLAT = "flat \u039bCDM (H0, \u03a9m)"
 
 _UNIT_CHOICES = {"as the file says (BUNIT)": None, "arcsec": "arcsec", "pixel": "pixel"}
+_KIND_CHOICES = {"as the file says (LENSMAP, else a deflection pair)": FROM_HEADER,
+                 "deflection pair": "deflection", "convergence (\u03ba)": "convergence",
+                 "potential (\u03c8, arcsec\u00b2)": "potential"}
 _NORM_FROM_FILE = "as the file says (Z_NORM, else D_ls/D_s = 1)"
 _NORM_UNIT = "D_ls/D_s = 1"
 _NORM_REFERENCE = "made for a source redshift"
@@ -57,6 +61,9 @@ class Scene:
         File name -> bytes or path of every input, to check a session against.
     knots : `~astropy.table.Table` or None
         Knots that come with the inputs (the demo's).
+    notes : list of str
+        Cautions raised while the models were built (e.g. the mass missing
+        outside a convergence map).
     z_source : float
         Suggested source redshift.
     """
@@ -72,6 +79,7 @@ class Scene:
     files: dict = dataclass_field(default_factory=dict)
     knots: object = None
     z_source: float = 2.0
+    notes: list = dataclass_field(default_factory=list)
 
 
 # ---------------------------------------------------------------------------- cached loaders
@@ -93,10 +101,15 @@ def _cached_cutout(sha256, name, _content):
 
 
 @st.cache_resource(max_entries=16, show_spinner=False)
-def _cached_field(checksums, names, units, z_lens, z_norm, cosmology_key, model_name, _contents):
+def _cached_field(checksums, names, units, z_lens, z_norm, cosmology_key, model_name, kind,
+                  _contents):
+    """The model and the cautions its construction raised (shown with it on every rerun)."""
     sources = [_named_bytes(n, c) for n, c in zip(names, _contents)]
-    return load_model(*sources, units=units, z_lens=z_lens, z_norm=z_norm,
-                      cosmology=cosmology_from_key(cosmology_key), name=model_name)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always", MissingMassWarning)
+        field = load_model(*sources, units=units, z_lens=z_lens, z_norm=z_norm,
+                           cosmology=cosmology_from_key(cosmology_key), name=model_name, kind=kind)
+    return field, [str(w.message) for w in caught if issubclass(w.category, MissingMassWarning)]
 
 
 @st.cache_resource(max_entries=2, show_spinner=False)
@@ -258,7 +271,7 @@ def files_scene(cutout_files, model_specs, z_lens, cosmology_choice):
     image = cutout_files[-1]
     cutout = _cached_cutout(image.sha256, image.name, image.content)
     files = {image.name: image.content}
-    fields, model_inputs = [], []
+    fields, model_inputs, notes = [], [], []
     names_seen = set()
     for k, spec in enumerate(model_specs):
         held = spec["files"]
@@ -273,9 +286,12 @@ def files_scene(cutout_files, model_specs, z_lens, cosmology_choice):
         names_seen.add(name)
         checksums = tuple(h.sha256 for h in held)
         names = tuple(h.name for h in held)
-        field = _cached_field(checksums, names, spec["units"], float(z_lens), spec["z_norm"],
-                              cosmology_choice, name, tuple(h.content for h in held))
+        field, cautions = _cached_field(checksums, names, spec["units"], float(z_lens),
+                                        spec["z_norm"], cosmology_choice, name,
+                                        spec.get("kind", FROM_HEADER),
+                                        tuple(h.content for h in held))
         fields.append(field)
+        notes.extend(cautions)
         # The session records what the files turned out to hold.
         model_inputs.append(ModelInputs(name, tuple(InputFile(h.name, h.sha256) for h in held),
                                         field.units, field.z_norm))
@@ -286,11 +302,11 @@ def files_scene(cutout_files, model_specs, z_lens, cosmology_choice):
         field.require_overlap(cutout.wcs, cutout.data.shape)
     key = "files|" + image.sha256 + "|" + "|".join(
         f"{m.name}:{','.join(f.sha256 for f in m.files)}:{m.units}:{m.z_norm}" for m in model_inputs
-    ) + f"|{float(z_lens)}|{cosmology_choice}"
+    ) + f"|{float(z_lens)}|{cosmology_choice}|" + ",".join(str(s.get("kind")) for s in model_specs)
     return Scene(key=key, title=f"{image.name} with {len(fields)} model(s)", cutout=cutout,
                  fields=fields, z_lens=float(z_lens), cosmology=fields[0].cosmology,
                  cutout_file=InputFile(image.name, image.sha256), model_inputs=model_inputs,
-                 files=files)
+                 files=files, notes=notes)
 
 
 # ---------------------------------------------------------------------------- the panel
@@ -343,6 +359,8 @@ def inputs_panel(state):
                       "cutout and deflection maps you meant.")
     if scene is not None:
         state[_SCENE] = scene
+        for note in scene.notes:
+            sidebar.warning(note)
     return state.get(_SCENE), errors
 
 
@@ -365,13 +383,19 @@ def _file_widgets(state):
         with st.expander(f"Lens model {k + 1}", expanded=k == 0):
             held = upload_slot(state, "Deflection maps", f"model_{k}", keep=2,
                                help="One FITS file with two image HDUs or a two-plane cube, or "
-                                    "two files (x component, then y).")
+                                    "two files (x component, then y); or one convergence or "
+                                    "potential map (see 'Map holds').")
             held = sorted(held, key=lambda h: h.name)
             if len(held) == 2 and st.checkbox(f"x map: {held[0].name} \u2014 swap x and y",
                                               key=f"lv_swap_{k}"):
                 held = held[::-1]
             default_name = _default_model_name(held) or f"model {k + 1}"
             name = st.text_input("Name", value=default_name, key=f"lv_name_{k}_{default_name}")
+            kind = _KIND_CHOICES[st.selectbox(
+                "Map holds", list(_KIND_CHOICES), key=f"lv_kind_{k}",
+                help="A convergence map is turned into deflections by FFT (the mass outside the "
+                     "map is missing, so curves near its edge are the least trustworthy); a "
+                     "potential map by its gradient, and it also gives time delays directly.")]
             units = _UNIT_CHOICES[st.selectbox("Deflection units", list(_UNIT_CHOICES),
                                                key=f"lv_units_{k}")]
             norm = st.radio("Normalisation", [_NORM_FROM_FILE, _NORM_UNIT, _NORM_REFERENCE],
@@ -380,5 +404,5 @@ def _file_widgets(state):
             if norm == _NORM_REFERENCE:
                 z_norm = float(st.number_input("Reference source redshift", 0.02, 20.0, 2.0, 0.01,
                                                key=f"lv_znorm_{k}"))
-        specs.append(dict(name=name, files=held, units=units, z_norm=z_norm))
+        specs.append(dict(name=name, files=held, units=units, z_norm=z_norm, kind=kind))
     return cutout_files, specs

@@ -28,11 +28,14 @@ KNOT_COLOUR = (255, 214, 0)
 KNOT_HALO = (20, 20, 20)
 COUNTERIMAGE_COLOUR = (0, 229, 255)
 PAIR_COLOUR = (255, 255, 255)
+#: Contours of an uploaded magnification map.
+OVERLAY_COLOUR = "#B07AD6"
 _DPI = 100
 
 
 def render_base_layer(data, viewport, *, stretch, limits, cmap, curves=(), model_names=(),
-                      contours=None, contour_levels=(), legend=True):
+                      contours=None, contour_levels=(), overlay=None, overlay_levels=(),
+                      legend=True):
     """The base layer as an RGB array of the viewport's size.
 
     Parameters
@@ -50,6 +53,11 @@ def render_base_layer(data, viewport, *, stretch, limits, cmap, curves=(), model
         |mu| on the crop's pixels (viewport.ny, viewport.nx), for contours.
     contour_levels : sequence of float
         |mu| levels of the contours.
+    overlay : ndarray or None
+        |mu| of a magnification map from a file, on the crop's pixels: drawn
+        as contours of its own colour (an overlay only, never a model).
+    overlay_levels : sequence of float
+        |mu| levels of the overlay contours.
     legend : bool
 
     Returns
@@ -82,6 +90,13 @@ def render_base_layer(data, viewport, *, stretch, limits, cmap, curves=(), model
         finite = np.where(np.isfinite(contours), contours, 0.0)
         ax.contour(xx, yy, finite, levels=sorted(contour_levels), colors="#7F7F7F",
                    linewidths=0.8, linestyles=":")
+    show_overlay = overlay is not None and len(overlay_levels) > 0
+    if show_overlay:
+        rows, cols = viewport.slices
+        yy, xx = np.mgrid[rows, cols]
+        ax.contour(xx, yy, np.where(np.isfinite(overlay), overlay, 0.0),
+                   levels=sorted(overlay_levels), colors=OVERLAY_COLOUR, linewidths=1.0,
+                   linestyles="-.")
     for model, kind, xy, closed in curves:
         if len(xy) < 2:
             continue
@@ -103,6 +118,10 @@ def render_base_layer(data, viewport, *, stretch, limits, cmap, curves=(), model
             levels = ", ".join(f"{level:g}" for level in sorted(contour_levels))
             handles.append(Line2D([], [], color="#7F7F7F", linestyle=":", linewidth=0.8,
                                   label=f"|\u03bc| = {levels}"))
+        if show_overlay:
+            levels = ", ".join(f"{level:g}" for level in sorted(overlay_levels))
+            handles.append(Line2D([], [], color=OVERLAY_COLOUR, linestyle="-.", linewidth=1.0,
+                                  label=f"|\u03bc| = {levels} (uploaded map, overlay only)"))
         handles += [
             Line2D([], [], linestyle="none", marker="o", markersize=7, markerfacecolor="none",
                    markeredgecolor=_hex(KNOT_COLOUR), markeredgewidth=1.5, label="marked knot"),

@@ -7,6 +7,8 @@ from astropy.coordinates import SkyCoord
 from streamlit_image_coordinates import streamlit_image_coordinates
 
 from ..errors import LensviewInputError
+from ..io.mapfiles import OVERLAY_ONLY_REASON, magnification_overlay_on, read_magnification_map
+from .inputs import upload_slot
 from . import state as page_state
 from .picture import draw_marks, render_base_layer
 from .viewport import Viewport
@@ -42,9 +44,14 @@ def display_settings(model_names=()):
     if show_contours and len(model_names) > 1:
         chosen = sidebar.selectbox("Contours of model", list(model_names), key="lv_contour_model")
         contour_model = list(model_names).index(chosen)
+    with sidebar:
+        overlay = upload_slot(st.session_state, "Magnification overlay (FITS, optional)",
+                              "mu_overlay", help=OVERLAY_ONLY_REASON)
+    if overlay:
+        sidebar.caption(OVERLAY_ONLY_REASON)
     return dict(stretch=stretch, limits=LIMIT_CHOICES[limits_name], cmap=cmap, width=int(width),
                 show_curves=show_curves, show_contours=show_contours,
-                contour_model=contour_model)
+                contour_model=contour_model, overlay=overlay[-1] if overlay else None)
 
 
 def snap_radius(state):
@@ -111,9 +118,24 @@ def centre_on(state, coord, cutout, zoom=None):
         state["lv_zoom"] = zoom
 
 
+@st.cache_resource(max_entries=2, show_spinner=False)
+def _cached_overlay(sha256, name, _content):
+    import io
+
+    buffer = io.BytesIO(_content)
+    buffer.name = name
+    return read_magnification_map(buffer)
+
+
 @st.cache_resource(max_entries=24, show_spinner=False)
 def _base_layer(scene_key, viewport, stretch, limits, cmap, z_source, show_curves, show_contours,
-                contour_model, _scene, _curves):
+                contour_model, overlay_sha, _scene, _curves, _overlay=None):
+    overlay = None
+    if _overlay is not None:
+        # |mu| of the user's map on the shown crop: drawn, never measured.
+        mu_map = _cached_overlay(_overlay.sha256, _overlay.name, _overlay.content)
+        overlay = magnification_overlay_on(mu_map, _scene.cutout.wcs[viewport.slices],
+                                           (viewport.ny, viewport.nx))
     contours = None
     if show_contours:
         # |mu| of the chosen model on the shown crop, from the library's det A resampling.
@@ -129,7 +151,8 @@ def _base_layer(scene_key, viewport, stretch, limits, cmap, z_source, show_curve
     return render_base_layer(_scene.cutout.data, viewport, stretch=stretch, limits=limits,
                              cmap=cmap, curves=drawn, model_names=[f.name for f in _scene.fields],
                              contours=contours,
-                             contour_levels=CONTOUR_LEVELS if show_contours else ())
+                             contour_levels=CONTOUR_LEVELS if show_contours else (),
+                             overlay=overlay, overlay_levels=CONTOUR_LEVELS)
 
 
 def sky_panel(state, scene, settings, z_source, results):
@@ -138,10 +161,11 @@ def sky_panel(state, scene, settings, z_source, results):
     curves = results.curves
     key = (scene.key, viewport, settings["stretch"], settings["limits"], settings["cmap"],
            float(z_source), settings["show_curves"] and bool(curves), settings["show_contours"],
-           settings["contour_model"] if settings["show_contours"] else 0)
+           settings["contour_model"] if settings["show_contours"] else 0,
+           settings["overlay"].sha256 if settings.get("overlay") else None)
     try:
         with st.spinner("Drawing the field..."):
-            base = _base_layer(*key, _scene=scene, _curves=curves)
+            base = _base_layer(*key, _scene=scene, _curves=curves, _overlay=settings.get("overlay"))
     except LensviewInputError as error:
         st.error(str(error))
         return viewport
