@@ -34,16 +34,20 @@ from scipy import ndimage
 
 from . import cosmology as _cosmo
 from .errors import LensviewInputError, OutsideFootprintWarning
+from .precision import FIT_DEGREE, WINDOW_LADDER, intersect_confidence, noise_aware, rounding_sigma
 from .stencils import (
     LAGRANGE_NODES,
     central_difference_2,
     central_difference_4,
+    fit_coefficients,
+    fit_frame,
+    fit_projector,
     gather_windows,
-    lagrange_weights,
+    monomials,
     window_starts,
 )
 
-__all__ = ["DeflectionField", "LocalTerms", "load_model", "FROM_HEADER"]
+__all__ = ["DeflectionField", "LocalTerms", "LocalFit", "load_model", "FROM_HEADER"]
 
 #: Cells per tile side for grid work.
 TILE = 16
@@ -97,6 +101,117 @@ class LocalTerms:
         kappa = self.convergence(f)
         gamma = np.hypot(*self.shear(f))
         return 1.0 - kappa - gamma, 1.0 - kappa + gamma
+
+
+class LocalFit:
+    """Polynomial fits of both deflection maps around a set of points.
+
+    Made by `DeflectionField.local_fit`; `terms` evaluates them at the same
+    points or at positions moved by up to about a pixel.
+    """
+
+    def __init__(self, field, col0, row0, window, coefficients, noise, valid):
+        self.field = field
+        self.col0, self.row0, self.window = col0, row0, window
+        #: (2, N, d+1, d+1) tensor coefficients of the x and y maps (`stencils.fit_coefficients`)
+        self.coefficients = coefficients
+        #: (2, N) rounding noise (map pixels) of the two maps' node values
+        self.noise = noise
+        self.valid = valid
+
+    @classmethod
+    def merge(cls, parts, choice, valid):
+        """Per point, the fit of ``parts[choice]`` (all parts cover the same points)."""
+        index = np.arange(len(choice))
+        col0, row0, window = (np.stack([getattr(p, name) for p in parts])[choice, index]
+                              for name in ("col0", "row0", "window"))
+        coefficients = np.stack([p.coefficients for p in parts])[choice, :, index]
+        noise = np.stack([p.noise for p in parts])[choice, :, index]
+        return cls(parts[0].field, col0, row0, window, coefficients.transpose(1, 0, 2, 3),
+                   noise.T, valid)
+
+    @classmethod
+    def scatter(cls, parts, members, valid):
+        """Join fits made for disjoint groups of points back into point order."""
+        n = len(valid)
+        size = parts[0].coefficients.shape[-1]
+        col0, row0, window = (np.zeros(n, np.int64) for _ in range(3))
+        coefficients = np.zeros((2, n, size, size))
+        noise = np.zeros((2, n))
+        for part, mine in zip(parts, members):
+            col0[mine], row0[mine], window[mine] = part.col0, part.row0, part.window
+            coefficients[:, mine] = part.coefficients
+            noise[:, mine] = part.noise
+        return cls(parts[0].field, col0, row0, window, coefficients, noise, valid)
+
+    def terms(self, x, y, *, second_derivatives=False):
+        """`LocalTerms` at positions near the points the fits were made for.
+
+        Parameters
+        ----------
+        x, y : array_like
+            Map pixel positions, one per fitted point (any shape of that size).
+        second_derivatives : bool
+            Also the gradients of T and D, for Newton steps.
+        """
+        x = np.asarray(x, dtype=float)
+        shape = x.shape
+        x = x.ravel()
+        y = np.asarray(y, dtype=float).ravel()
+        inside = self.valid & self.field.inside(x, y)
+        centre, scale = fit_frame(self.window)
+        sx = (np.where(inside, x, self.col0) - self.col0 - centre) / scale
+        sy = (np.where(inside, y, self.row0) - self.row0 - centre) / scale
+        orders = 3 if second_derivatives else 2
+        # Per order d, the monomials' d-th derivatives in pixels: d/dt = (1/scale) d/ds.
+        bx = np.stack([monomials(sx, d, FIT_DEGREE) / scale[:, None] ** d for d in range(orders)], 2)
+        by = np.stack([monomials(sy, d, FIT_DEGREE) / scale[:, None] ** d for d in range(orders)], 2)
+        # fitted[k][n, dy, dx]: d^dy/dy^dy d^dx/dx^dx of map k at point n.
+        fitted = [np.matmul(by.transpose(0, 2, 1), np.matmul(c, bx)) for c in self.coefficients]
+        gram = {n: (lambda p: p @ p.T)(fit_projector(int(n), FIT_DEGREE)) for n in np.unique(self.window)}
+        norms = np.empty((len(x), 2, 2))  # |weights| of (axis y, x) for orders 0, 1
+        for n, g in gram.items():
+            mine = self.window == n
+            for axis, basis in enumerate((by, bx)):
+                b = basis[mine][:, :, :2]
+                norms[mine, axis] = np.sqrt(np.sum(b * np.matmul(g, b), axis=1))
+        nan = np.where(inside, 0.0, np.nan)
+        value = {}
+        for k, label in enumerate("xy"):
+            value["a" + label] = fitted[k][:, 0, 0]
+            value[label + "_x"] = fitted[k][:, 0, 1]
+            value[label + "_y"] = fitted[k][:, 1, 0]
+            if second_derivatives:
+                value[label + "_xx"] = fitted[k][:, 0, 2]
+                value[label + "_xy"] = fitted[k][:, 1, 1]
+                value[label + "_yy"] = fitted[k][:, 2, 0]
+        value = {key: v + nan for key, v in value.items()}
+        terms = dict(ax=value["ax"], ay=value["ay"], a11=value["x_x"], a12=value["x_y"],
+                     a21=value["y_x"], a22=value["y_y"])
+        if second_derivatives:
+            a11, a12, a21, a22 = terms["a11"], terms["a12"], terms["a21"], terms["a22"]
+            grad = {  # d(a_ij)/dx, d(a_ij)/dy
+                "a11": (value["x_xx"], value["x_xy"]), "a12": (value["x_xy"], value["x_yy"]),
+                "a21": (value["y_xx"], value["y_xy"]), "a22": (value["y_xy"], value["y_yy"]),
+            }
+            terms["grad_T"] = tuple(grad["a11"][k] + grad["a22"][k] for k in range(2))
+            terms["grad_D"] = tuple(
+                a22 * grad["a11"][k] + a11 * grad["a22"][k]
+                - a21 * grad["a12"][k] - a12 * grad["a21"][k]
+                for k in range(2)
+            )
+        # d/dx takes the x-derivative weights in x and the value weights in y, and so on.
+        sx_, sy_ = norms[:, 1], norms[:, 0]
+        terms["sigma_a"] = tuple(
+            self.noise[k] * sy_[:, dy] * sx_[:, dx] + nan
+            for k in range(2) for dy, dx in ((0, 1), (1, 0)))
+        for key, val in terms.items():
+            if isinstance(val, tuple):
+                terms[key] = tuple(np.reshape(v, shape) for v in val)
+            else:
+                terms[key] = val.reshape(shape)
+        terms["window"] = np.where(inside, self.window, 0).reshape(shape)
+        return LocalTerms(self.field._frame, **terms)
 
 
 class DeflectionField:
@@ -159,6 +274,7 @@ class DeflectionField:
         _warn_if_not_linear(self.wcs, self.name)
         self.shape = alpha_x.shape
         self._alpha = (alpha_x, alpha_y)
+        self._noise_aware = noise_aware(alpha_x.dtype) or noise_aware(alpha_y.dtype)
         scales = proj_plane_pixel_scales(self.wcs) * 3600.0
         #: arcsec per pixel along the map's x and y axes
         self.pixel_scales = scales * u.arcsec
@@ -274,8 +390,11 @@ class DeflectionField:
                 "cutout inside the model's footprint.")
 
     # ------------------------------------------------------------------ point evaluation
-    def local_terms(self, x, y, *, second_derivatives=False, warn=True):
+    def local_terms(self, x, y, *, second_derivatives=False, warn=True, windows=None):
         """Deflection and Jacobian at map pixel positions.
+
+        A shortcut for ``local_fit(x, y).terms(x, y)``; see `local_fit` for
+        the choice of fit.
 
         Parameters
         ----------
@@ -285,64 +404,91 @@ class DeflectionField:
             Also return the gradients of T and D, for Newton steps.
         warn : bool
             Warn when positions lie outside the map (they get NaN).
+        windows : array_like of int, optional
+            As for `local_fit`.
 
         Returns
         -------
         LocalTerms
+            Also carries ``window`` (nodes per axis used at each point) and
+            ``sigma_a`` (standard deviations of a11, a12, a21, a22 from the
+            map's rounding noise).
         """
-        x = np.atleast_1d(np.asarray(x, dtype=float))
-        y = np.atleast_1d(np.asarray(y, dtype=float))
-        shape = x.shape
-        x, y = x.ravel(), y.ravel()
+        return self.local_fit(x, y, warn=warn, windows=windows).terms(
+            x, y, second_derivatives=second_derivatives)
+
+    def local_fit(self, x, y, *, warn=True, windows=None):
+        """Local polynomial fits of both maps around map pixel positions.
+
+        On float64 maps the fit is the 6-node (degree-5) Lagrange
+        interpolant. On maps stored with less precision (float32) each point
+        gets the widest least-squares window of
+        `lensview.precision.WINDOW_LADDER` whose Jacobian agrees with the
+        narrower windows' within their rounding noise (`lensview.precision`).
+        The fits stay valid for positions moved by up to a pixel, so Newton
+        iterations evaluate them without gathering the map again.
+
+        Parameters
+        ----------
+        x, y : array_like
+            Map pixel positions (0-based).
+        warn : bool
+            Warn when positions lie outside the map (their terms are NaN).
+        windows : array_like of int, optional
+            Nodes per axis for each point (e.g. the ``window`` of earlier
+            `LocalTerms`); skips the choice.
+
+        Returns
+        -------
+        LocalFit
+        """
+        x = np.atleast_1d(np.asarray(x, dtype=float)).ravel()
+        y = np.atleast_1d(np.asarray(y, dtype=float)).ravel()
         inside = self.inside(x, y)
         if warn and not inside.all():
             _warn_outside(self.name, int((~inside).sum()), x.size)
-        ny, nx = self.shape
         xs = np.where(inside, x, 0.0)
         ys = np.where(inside, y, 0.0)
-        col0 = window_starts(xs, nx)
-        row0 = window_starts(ys, ny)
-        tx, ty = xs - col0, ys - row0
-        wx = [lagrange_weights(tx, d) for d in range(3 if second_derivatives else 2)]
-        wy = [lagrange_weights(ty, d) for d in range(3 if second_derivatives else 2)]
-        out = {}
-        for label, alpha, factor in (("x", self._alpha[0], self._to_pixels[0]),
-                                     ("y", self._alpha[1], self._to_pixels[1])):
-            window = gather_windows(alpha, row0, col0) * factor
-            along_x = [np.einsum("nji,ni->nj", window, w) for w in wx]
+        ladder = self._window_ladder
+        if windows is not None:
+            windows = np.broadcast_to(np.asarray(windows, dtype=np.int64).ravel(), xs.shape)
+            windows = np.where(np.isin(windows, ladder), windows, ladder[0])
+        elif len(ladder) == 1:
+            windows = np.full(xs.shape, ladder[0])
+        else:
+            parts = [self._fit_window(xs, ys, n) for n in ladder]
+            jacobians = [part.terms(xs, ys) for part in parts]
+            keys = ("a11", "a12", "a21", "a22")
+            estimates = np.array([[getattr(j, k) for k in keys] for j in jacobians])
+            sigmas = np.array([j.sigma_a for j in jacobians])
+            choice = intersect_confidence(estimates, sigmas)
+            return LocalFit.merge(parts, choice, inside)
+        groups = [(n, np.nonzero(windows == n)[0]) for n in np.unique(windows)]
+        parts = [self._fit_window(xs[mine], ys[mine], int(n)) for n, mine in groups]
+        return LocalFit.scatter(parts, [mine for _, mine in groups], inside)
 
-            def value(dy, dx):
-                return np.einsum("nj,nj->n", wy[dy], along_x[dx])
+    @property
+    def _window_ladder(self):
+        """Candidate window sizes for point fits on this map."""
+        if not self._noise_aware:
+            return (LAGRANGE_NODES,)
+        return tuple(n for n in WINDOW_LADDER if n <= min(self.shape))
 
-            out["a" + label] = value(0, 0)
-            out[f"d{label}_dx"] = value(0, 1)
-            out[f"d{label}_dy"] = value(1, 0)
-            if second_derivatives:
-                out[f"d{label}_dxx"] = value(0, 2)
-                out[f"d{label}_dxy"] = value(1, 1)
-                out[f"d{label}_dyy"] = value(2, 0)
-        for key in out:
-            out[key] = np.where(inside, out[key], np.nan)
-        terms = dict(ax=out["ax"], ay=out["ay"], a11=out["dx_dx"], a12=out["dx_dy"],
-                     a21=out["dy_dx"], a22=out["dy_dy"])
-        if second_derivatives:
-            a11, a12, a21, a22 = terms["a11"], terms["a12"], terms["a21"], terms["a22"]
-            grad = {  # d(a_ij)/dx, d(a_ij)/dy
-                "a11": (out["dx_dxx"], out["dx_dxy"]), "a12": (out["dx_dxy"], out["dx_dyy"]),
-                "a21": (out["dy_dxx"], out["dy_dxy"]), "a22": (out["dy_dxy"], out["dy_dyy"]),
-            }
-            terms["grad_T"] = tuple(grad["a11"][k] + grad["a22"][k] for k in range(2))
-            terms["grad_D"] = tuple(
-                a22 * grad["a11"][k] + a11 * grad["a22"][k]
-                - a21 * grad["a12"][k] - a12 * grad["a21"][k]
-                for k in range(2)
-            )
-        for key, val in terms.items():
-            if isinstance(val, tuple):
-                terms[key] = tuple(v.reshape(shape) for v in val)
-            else:
-                terms[key] = val.reshape(shape)
-        return LocalTerms(self._frame, **terms)
+    def _fit_window(self, xs, ys, n_nodes):
+        """Fits of both maps on n x n windows around points inside the map."""
+        ny, nx = self.shape
+        col0 = window_starts(xs, nx, n_nodes)
+        row0 = window_starts(ys, ny, n_nodes)
+        coefficients, noise = [], []
+        for alpha, factor in zip(self._alpha, self._to_pixels):
+            stored = gather_windows(alpha, row0, col0, n_nodes, dtype=None)
+            noise.append(rounding_sigma(stored) * factor)
+            window = stored.astype(np.float64)
+            if factor != 1.0:
+                window *= factor
+            coefficients.append(fit_coefficients(window, n_nodes, FIT_DEGREE))
+        return LocalFit(self, col0, row0, np.full(len(xs), n_nodes), np.array(coefficients),
+                        np.array(noise), np.ones(len(xs), bool))
 
     def lens_quantities(self, coords, z_source, *, warn=True):
         """All local lensing quantities at sky positions.
