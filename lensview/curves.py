@@ -221,7 +221,7 @@ def caustics(field, z_source, curves=None):
 def _contour_tiles(field, tiles, f):
     """Marching squares over tiles; returns [(xy (N, 2), closed)] in map pixels."""
     tiles = np.unique(np.asarray(tiles).reshape(-1, 2), axis=0)
-    terms = field.tiles.terms(tiles)
+    terms = field.tiles.terms(tiles, shear=False)
     det = 1.0 - f * terms["T"].astype(np.float64) + f * f * terms["D"].astype(np.float64)
     ny, nx = field.shape
     row0, col0 = field.tiles.origins(tiles)
@@ -339,26 +339,29 @@ def _refine(field, xy, f, steps=NEWTON_STEPS):
     xy = np.array(xy, dtype=float)
     # One noise-aware fit per start point; it stays valid for sub-pixel steps.
     fit = field.local_fit(xy[:, 0], xy[:, 1], warn=False)
-    active = np.ones(len(xy), bool)
+    idx = np.arange(len(xy))
     for _ in range(steps):
-        if not active.any():
+        if not len(idx):
             break
-        terms = fit.terms(xy[:, 0], xy[:, 1], second_derivatives=True)
+        part = fit.subset(idx)
+        terms = part.terms(xy[idx, 0], xy[idx, 1], second_derivatives=True)
         value = terms.det_a(f)
         gx, gy = terms.grad_det_a(f)
         norm2 = gx * gx + gy * gy
         with np.errstate(divide="ignore", invalid="ignore"):
             step = np.column_stack([value * gx, value * gy]) / norm2[:, None]
+            # Steps far below the map's own positional noise change nothing that matters.
+            negligible = np.maximum(1e-9, 1e-3 * det_a_sigma(terms, f) / np.sqrt(norm2))
         size = np.hypot(step[:, 0], step[:, 1])
-        good = active & np.isfinite(size) & (size < 1.0)
-        xy[good] -= step[good]
-        active &= good & (size >= 1e-9)
+        good = np.isfinite(size) & (size < 1.0)
+        xy[idx[good]] -= step[good]
+        idx = idx[good & ~(size < negligible)]
     return xy, fit
 
 
 def _unresolved_nodes(field, tiles):
     tiles = np.unique(np.asarray(tiles).reshape(-1, 2), axis=0)
-    flags = field.tiles.terms(tiles)["unresolved"]
+    flags = field.tiles.terms(tiles, shear=False)["unresolved"]
     k, r, c = np.nonzero(flags)
     row0, col0 = field.tiles.origins(tiles)
     return np.column_stack([col0[k] + c, row0[k] + r]).astype(float)

@@ -24,7 +24,9 @@ Two evaluation paths, both free of any global spline:
   smooth between nodes and mu is never interpolated.
 """
 
+import os
 import warnings
+from concurrent.futures import ThreadPoolExecutor
 
 import numpy as np
 import astropy.units as u
@@ -59,6 +61,9 @@ COARSE_STRIDE = 4
 #: which a node counts as unresolved by the grid (e.g. a singular centre).
 UNRESOLVED_TOLERANCE = 0.05
 _TILE_BATCH = 2048
+#: Threads for tile batches (numpy releases the GIL, so they use separate cores).
+_WORKERS = min(4, os.cpu_count() or 1)
+_POOL = None
 _CURVE_CACHE_SIZE = 32
 
 
@@ -143,6 +148,11 @@ class LocalFit:
             coefficients[:, mine] = part.coefficients
             noise[:, mine] = part.noise
         return cls(parts[0].field, col0, row0, window, coefficients, noise, valid)
+
+    def subset(self, index):
+        """The fits of some of the points (an index array)."""
+        return LocalFit(self.field, self.col0[index], self.row0[index], self.window[index],
+                        self.coefficients[:, index], self.noise[:, index], self.valid[index])
 
     def terms(self, x, y, *, second_derivatives=False):
         """`LocalTerms` at positions near the points the fits were made for.
@@ -456,7 +466,7 @@ class DeflectionField:
         elif len(ladder) == 1:
             windows = np.full(xs.shape, ladder[0])
         else:
-            parts = [self._fit_window(xs, ys, n) for n in ladder]
+            parts = _in_threads(lambda n: self._fit_window(xs, ys, n), ladder)
             jacobians = [part.terms(xs, ys) for part in parts]
             keys = ("a11", "a12", "a21", "a22")
             estimates = np.array([[getattr(j, k) for k in keys] for j in jacobians])
@@ -464,7 +474,8 @@ class DeflectionField:
             choice = intersect_confidence(estimates, sigmas)
             return LocalFit.merge(parts, choice, inside)
         groups = [(n, np.nonzero(windows == n)[0]) for n in np.unique(windows)]
-        parts = [self._fit_window(xs[mine], ys[mine], int(n)) for n, mine in groups]
+        parts = _in_threads(lambda group: self._fit_window(xs[group[1]], ys[group[1]], int(group[0])),
+                            groups)
         return LocalFit.scatter(parts, [mine for _, mine in groups], inside)
 
     @property
@@ -608,8 +619,9 @@ class DeflectionField:
         """det A on the coarse locator grid (every COARSE_STRIDE-th node)."""
         if self._coarse_terms is None:
             step = COARSE_STRIDE
-            ax = np.asarray(self._alpha[0][::step, ::step], np.float64) * self._to_pixels[0]
-            ay = np.asarray(self._alpha[1][::step, ::step], np.float64) * self._to_pixels[1]
+            # float32 is ample for locating tiles, and halves the work on large maps.
+            ax = np.asarray(self._alpha[0][::step, ::step], np.float32) * np.float32(self._to_pixels[0])
+            ay = np.asarray(self._alpha[1][::step, ::step], np.float32) * np.float32(self._to_pixels[1])
             a11 = np.gradient(ax, step, axis=1)
             a12 = np.gradient(ax, step, axis=0)
             a21 = np.gradient(ay, step, axis=1)
@@ -629,19 +641,26 @@ class DeflectionField:
         if max(self.shape) <= HIERARCHY_THRESHOLD:
             return np.argwhere(np.ones(grid, bool))
         det_a = self.coarse_det_a(f)
-        corners = np.stack([det_a[:-1, :-1], det_a[:-1, 1:], det_a[1:, :-1], det_a[1:, 1:]])
+        corners = (det_a[:-1, :-1], det_a[:-1, 1:], det_a[1:, :-1], det_a[1:, 1:])
         with np.errstate(invalid="ignore"):
-            low = np.min(corners, axis=0)
-            high = np.max(corners, axis=0)
+            low = np.minimum(np.minimum(corners[0], corners[1]), np.minimum(corners[2], corners[3]))
+            high = np.maximum(np.maximum(corners[0], corners[1]), np.maximum(corners[2], corners[3]))
             spread = high - low
-            closest = np.min(np.abs(corners), axis=0)
+            # Nearest corner value to zero; any sign change is flagged anyway.
+            closest = np.minimum(np.abs(low), np.abs(high))
             flagged = (low <= 0) & (high >= 0)
-            flagged |= closest < np.maximum(0.05, 1.5 * spread)
+            flagged |= closest < np.maximum(np.float32(0.02), 1.5 * spread)
         flagged &= np.isfinite(spread)
-        rows, cols = np.nonzero(flagged)
+        # Coarse cells to tiles: a tile is flagged when any of its coarse cells is
+        # (cells past the last tile row or column belong to the last tile).
         per_tile = TILE // COARSE_STRIDE
-        tiles = np.zeros(grid, bool)
-        tiles[np.minimum(rows // per_tile, grid[0] - 1), np.minimum(cols // per_tile, grid[1] - 1)] = True
+        padded = np.zeros((grid[0] + 1) * per_tile, bool), np.zeros((grid[1] + 1) * per_tile, bool)
+        cells = np.zeros((len(padded[0]), len(padded[1])), bool)
+        cells[:flagged.shape[0], :flagged.shape[1]] = flagged
+        tiles = cells.reshape(grid[0] + 1, per_tile, grid[1] + 1, per_tile).any(axis=(1, 3))
+        tiles[-2, :] |= tiles[-1, :]
+        tiles[:, -2] |= tiles[:, -1]
+        tiles = tiles[:-1, :-1]
         tiles = ndimage.binary_dilation(tiles, structure=np.ones((3, 3), bool))
         return np.argwhere(tiles)
 
@@ -734,65 +753,103 @@ class _TileCache:
         self.store = {key: np.empty((0, self.NODES, self.NODES), np.float32)
                       for key in ("T", "D", "G1", "G2")}
         self.store["unresolved"] = np.empty((0, self.NODES, self.NODES), bool)
+        self.has_shear = np.zeros(0, bool)
 
-    def terms(self, tiles):
-        """Stacks of cached terms for tiles (computing the missing ones)."""
+    def terms(self, tiles, shear=True):
+        """Stacks of cached terms for tiles (computing the missing ones).
+
+        ``shear=False`` leaves out G1 and G2 (curve extraction needs only T,
+        D and the resolution flags), so they are computed only when asked for.
+        """
         tiles = np.asarray(tiles, dtype=np.int64).reshape(-1, 2)
         missing = tiles[self.slot[tiles[:, 0], tiles[:, 1]] < 0]
         if len(missing):
             missing = np.unique(missing, axis=0)
             start = len(self.store["T"])
-            parts = [self._compute(missing[i:i + _TILE_BATCH])
-                     for i in range(0, len(missing), _TILE_BATCH)]
-            for key in self.store:
+            parts = _in_threads(self._compute, _batches(missing))
+            for key in ("T", "D", "unresolved"):
                 self.store[key] = np.concatenate([self.store[key]] + [p[key] for p in parts])
             self.slot[missing[:, 0], missing[:, 1]] = start + np.arange(len(missing))
         index = self.slot[tiles[:, 0], tiles[:, 1]]
-        return {key: value[index] for key, value in self.store.items()}
+        out = {key: self.store[key][index] for key in ("T", "D", "unresolved")}
+        if shear:
+            out.update(self._shear(tiles, index))
+        return out
+
+    def _shear(self, tiles, index):
+        size = len(self.store["T"])
+        for key in ("G1", "G2"):
+            grown = np.full((size, self.NODES, self.NODES), np.nan, np.float32)
+            grown[:len(self.store[key])] = self.store[key]
+            self.store[key] = grown
+        if len(self.has_shear) < size:
+            self.has_shear = np.concatenate([self.has_shear, np.zeros(size - len(self.has_shear), bool)])
+        lacking = np.unique(index[~self.has_shear[index]])
+        if len(lacking):
+            slots = np.full(self.grid_shape, -1, dtype=np.int64)
+            slots[tiles[:, 0], tiles[:, 1]] = index
+            where = np.argwhere(np.isin(slots, lacking))
+            order = slots[where[:, 0], where[:, 1]]
+            parts = _in_threads(lambda batch: self._compute(batch, shear=True), _batches(where))
+            for key in ("G1", "G2"):
+                self.store[key][order] = np.concatenate([p[key] for p in parts])
+            self.has_shear[order] = True
+        return {key: self.store[key][index] for key in ("G1", "G2")}
 
     def origins(self, tiles):
         """Global (row, col) of the first node of each tile."""
         return tiles[:, 0] * TILE, tiles[:, 1] * TILE
 
-    def _compute(self, tiles):
+    def _compute(self, tiles, shear=False):
         field = self.field
         ny, nx = field.shape
         pad = 2
         width = self.NODES + 2 * pad
         row0, col0 = self.origins(tiles)
+        interior = ((row0 >= pad) & (row0 - pad + width <= ny)
+                    & (col0 >= pad) & (col0 - pad + width <= nx))
+        edge = np.nonzero(~interior)[0]
         offsets = np.arange(width) - pad
-        rows = row0[:, None] + offsets
-        cols = col0[:, None] + offsets
+        rows = row0[edge, None] + offsets
+        cols = col0[edge, None] + offsets
         valid = ((rows >= 0) & (rows < ny))[:, :, None] & ((cols >= 0) & (cols < nx))[:, None, :]
         rows_c = np.clip(rows, 0, ny - 1)
         cols_c = np.clip(cols, 0, nx - 1)
         windows = []
         for alpha, factor in zip(field._alpha, field._to_pixels):
-            window = np.asarray(alpha[rows_c[:, :, None], cols_c[:, None, :]], np.float64)
-            window *= factor
-            window[~valid] = np.nan
+            window = np.empty((len(tiles), width, width))
+            if interior.any():
+                # Whole window rows at a time from a strided view: no per-node index arrays.
+                window[interior] = gather_windows(alpha, row0[interior] - pad, col0[interior] - pad,
+                                                  width, dtype=None)
+            if len(edge):
+                window[edge] = alpha[rows_c[:, :, None], cols_c[:, None, :]]
+                window[edge] = np.where(valid, window[edge], np.nan)
+            if factor != 1.0:
+                window *= factor
             windows.append(window)
         core = slice(pad, pad + self.NODES)
         derivatives4, derivatives2 = {}, {}
         for label, window in zip("xy", windows):
-            derivatives4[label + "x"] = central_difference_4(window, 2)[:, core, :]
-            derivatives4[label + "y"] = central_difference_4(window, 1)[:, :, core]
-            derivatives2[label + "x"] = central_difference_2(window, 2)[:, core, :]
-            derivatives2[label + "y"] = central_difference_2(window, 1)[:, :, core]
+            across, down = window[:, core, :], window[:, :, core]
+            derivatives4[label + "x"] = central_difference_4(across, 2)
+            derivatives4[label + "y"] = central_difference_4(down, 1)
+            derivatives2[label + "x"] = central_difference_2(across, 2)
+            derivatives2[label + "y"] = central_difference_2(down, 1)
         a11, a12 = derivatives4["xx"], derivatives4["xy"]
         a21, a22 = derivatives4["yx"], derivatives4["yy"]
+        if shear:
+            gamma1, gamma2 = _sky_shear(a11, a12, a21, a22, field._frame, 1.0)
+            return {"G1": gamma1.astype(np.float32), "G2": gamma2.astype(np.float32)}
         disagreement = np.zeros_like(a11)
         for key in derivatives4:
             with np.errstate(invalid="ignore"):
                 relative = np.abs(derivatives4[key] - derivatives2[key]) / np.maximum(
                     np.abs(derivatives4[key]), 1.0)
             disagreement = np.fmax(disagreement, relative)
-        gamma1, gamma2 = _sky_shear(a11, a12, a21, a22, field._frame, 1.0)
         return {
             "T": (a11 + a22).astype(np.float32),
             "D": (a11 * a22 - a12 * a21).astype(np.float32),
-            "G1": gamma1.astype(np.float32),
-            "G2": gamma2.astype(np.float32),
             "unresolved": disagreement > UNRESOLVED_TOLERANCE,
         }
 
@@ -809,6 +866,23 @@ class _TileCache:
         out[:-1, -1] = blocks[:, -1, :TILE, TILE].reshape(-1)
         out[-1, -1] = blocks[-1, -1, TILE, TILE]
         return out[:ny, :nx]
+
+
+def _batches(tiles):
+    """Tile batches: two or more, so both cores get work, none over _TILE_BATCH."""
+    count = max(2, -(-len(tiles) // _TILE_BATCH))
+    size = max(1, -(-len(tiles) // count))
+    return [tiles[i:i + size] for i in range(0, len(tiles), size)]
+
+
+def _in_threads(work, batches):
+    """``work`` on each batch, in threads (numpy releases the GIL in its loops)."""
+    global _POOL
+    if len(batches) < 2 or _WORKERS < 2:
+        return [work(b) for b in batches]
+    if _POOL is None:
+        _POOL = ThreadPoolExecutor(max_workers=_WORKERS, thread_name_prefix="lensview")
+    return list(_POOL.map(work, batches))
 
 
 def _sky_shear(a11, a12, a21, a22, frame, f):
