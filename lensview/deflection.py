@@ -36,7 +36,8 @@ from scipy import ndimage
 
 from . import cosmology as _cosmo
 from .errors import LensviewInputError, OutsideFootprintWarning
-from .precision import FIT_DEGREE, WINDOW_LADDER, intersect_confidence, noise_aware, rounding_sigma
+from .precision import (FIT_DEGREE, WINDOW_LADDER, fit_degree, intersect_confidence, noise_aware,
+                        rounding_sigma)
 from .stencils import (
     LAGRANGE_NODES,
     central_difference_2,
@@ -64,6 +65,11 @@ _TILE_BATCH = 2048
 #: Threads for tile batches (numpy releases the GIL, so they use separate cores).
 _WORKERS = min(4, os.cpu_count() or 1)
 _POOL = None
+#: Below these sizes work stays on the calling thread.
+_THREADED_POINTS = 2000
+_THREADED_TILES = 64
+#: Points fitted at once by `DeflectionField.local_fit`.
+_CHUNK_POINTS = 8192
 _CURVE_CACHE_SIZE = 32
 
 
@@ -178,7 +184,7 @@ class LocalFit:
         by = np.stack([monomials(sy, d, FIT_DEGREE) / scale[:, None] ** d for d in range(orders)], 2)
         # fitted[k][n, dy, dx]: d^dy/dy^dy d^dx/dx^dx of map k at point n.
         fitted = [np.matmul(by.transpose(0, 2, 1), np.matmul(c, bx)) for c in self.coefficients]
-        gram = {n: (lambda p: p @ p.T)(fit_projector(int(n), FIT_DEGREE)) for n in np.unique(self.window)}
+        gram = {n: _padded_gram(int(n)) for n in np.unique(self.window)}
         norms = np.empty((len(x), 2, 2))  # |weights| of (axis y, x) for orders 0, 1
         for n, g in gram.items():
             mine = self.window == n
@@ -457,6 +463,15 @@ class DeflectionField:
         inside = self.inside(x, y)
         if warn and not inside.all():
             _warn_outside(self.name, int((~inside).sum()), x.size)
+        if x.size > _CHUNK_POINTS:
+            # Wide windows hold hundreds of nodes per point: bound the memory in flight.
+            members = [np.arange(i, min(i + _CHUNK_POINTS, x.size))
+                       for i in range(0, x.size, _CHUNK_POINTS)]
+            given = None if windows is None else np.broadcast_to(
+                np.asarray(windows, dtype=np.int64).ravel(), x.shape)
+            parts = [self.local_fit(x[m], y[m], warn=False,
+                                    windows=None if given is None else given[m]) for m in members]
+            return LocalFit.scatter(parts, members, inside)
         xs = np.where(inside, x, 0.0)
         ys = np.where(inside, y, 0.0)
         ladder = self._window_ladder
@@ -466,7 +481,8 @@ class DeflectionField:
         elif len(ladder) == 1:
             windows = np.full(xs.shape, ladder[0])
         else:
-            parts = _in_threads(lambda n: self._fit_window(xs, ys, n), ladder)
+            parts = _in_threads(lambda n: self._fit_window(xs, ys, n), ladder,
+                                len(xs) >= _THREADED_POINTS)
             jacobians = [part.terms(xs, ys) for part in parts]
             keys = ("a11", "a12", "a21", "a22")
             estimates = np.array([[getattr(j, k) for k in keys] for j in jacobians])
@@ -475,7 +491,7 @@ class DeflectionField:
             return LocalFit.merge(parts, choice, inside)
         groups = [(n, np.nonzero(windows == n)[0]) for n in np.unique(windows)]
         parts = _in_threads(lambda group: self._fit_window(xs[group[1]], ys[group[1]], int(group[0])),
-                            groups)
+                            groups, len(xs) >= _THREADED_POINTS)
         return LocalFit.scatter(parts, [mine for _, mine in groups], inside)
 
     @property
@@ -497,7 +513,10 @@ class DeflectionField:
             window = stored.astype(np.float64)
             if factor != 1.0:
                 window *= factor
-            coefficients.append(fit_coefficients(window, n_nodes, FIT_DEGREE))
+            fitted = fit_coefficients(window, n_nodes, fit_degree(n_nodes))
+            # Lower-degree fits are degree-FIT_DEGREE polynomials with zero top terms.
+            pad = FIT_DEGREE + 1 - fitted.shape[-1]
+            coefficients.append(np.pad(fitted, ((0, 0), (0, pad), (0, pad))) if pad else fitted)
         return LocalFit(self, col0, row0, np.full(len(xs), n_nodes), np.array(coefficients),
                         np.array(noise), np.ones(len(xs), bool))
 
@@ -560,14 +579,15 @@ class DeflectionField:
         """
         f = self.scaling_factor(z_source)
         x, y = self.sky_to_pixels(coords)
-        terms = self.local_terms(x, y)
+        # Deflection values need no noise-aware window: rounding reaches them unamplified.
+        terms = self.local_terms(x, y, windows=LAGRANGE_NODES)
         traced = self.pixels_to_sky(x - f * terms.ax, y - f * terms.ay)
         return traced.reshape(np.shape(coords)) if np.shape(coords) else traced[0]
 
     def trace_pixels(self, x, y, z_source):
         """Ray-trace map pixel positions; returns source-plane map pixels."""
         f = self.scaling_factor(z_source)
-        terms = self.local_terms(x, y, warn=False)
+        terms = self.local_terms(x, y, warn=False, windows=LAGRANGE_NODES)
         return x - f * terms.ax, y - f * terms.ay
 
     # ------------------------------------------------------------------ grid evaluation
@@ -766,7 +786,7 @@ class _TileCache:
         if len(missing):
             missing = np.unique(missing, axis=0)
             start = len(self.store["T"])
-            parts = _in_threads(self._compute, _batches(missing))
+            parts = _in_threads(self._compute, _batches(missing), len(missing) >= _THREADED_TILES)
             for key in ("T", "D", "unresolved"):
                 self.store[key] = np.concatenate([self.store[key]] + [p[key] for p in parts])
             self.slot[missing[:, 0], missing[:, 1]] = start + np.arange(len(missing))
@@ -790,7 +810,8 @@ class _TileCache:
             slots[tiles[:, 0], tiles[:, 1]] = index
             where = np.argwhere(np.isin(slots, lacking))
             order = slots[where[:, 0], where[:, 1]]
-            parts = _in_threads(lambda batch: self._compute(batch, shear=True), _batches(where))
+            parts = _in_threads(lambda batch: self._compute(batch, shear=True), _batches(where),
+                                len(where) >= _THREADED_TILES)
             for key in ("G1", "G2"):
                 self.store[key][order] = np.concatenate([p[key] for p in parts])
             self.has_shear[order] = True
@@ -868,6 +889,16 @@ class _TileCache:
         return out[:ny, :nx]
 
 
+def _padded_gram(n_nodes):
+    """P P^T of the fit projector on ``n_nodes``, padded to FIT_DEGREE + 1 terms:
+    |weights|^2 of any evaluation is b^T (P P^T) b for its monomials b."""
+    projector = fit_projector(n_nodes, fit_degree(n_nodes))
+    gram = np.zeros((FIT_DEGREE + 1, FIT_DEGREE + 1))
+    size = len(projector)
+    gram[:size, :size] = projector @ projector.T
+    return gram
+
+
 def _batches(tiles):
     """Tile batches: two or more, so both cores get work, none over _TILE_BATCH."""
     count = max(2, -(-len(tiles) // _TILE_BATCH))
@@ -875,10 +906,11 @@ def _batches(tiles):
     return [tiles[i:i + size] for i in range(0, len(tiles), size)]
 
 
-def _in_threads(work, batches):
-    """``work`` on each batch, in threads (numpy releases the GIL in its loops)."""
+def _in_threads(work, batches, worth_it=True):
+    """``work`` on each batch, in threads (numpy releases the GIL in its loops)
+    when ``worth_it`` (small jobs cost more to hand over than to do)."""
     global _POOL
-    if len(batches) < 2 or _WORKERS < 2:
+    if len(batches) < 2 or _WORKERS < 2 or not worth_it:
         return [work(b) for b in batches]
     if _POOL is None:
         _POOL = ThreadPoolExecutor(max_workers=_WORKERS, thread_name_prefix="lensview")

@@ -29,6 +29,7 @@ import numpy as np
 
 __all__ = [
     "FIT_DEGREE",
+    "fit_degree",
     "WINDOW_LADDER",
     "CONFIDENCE",
     "noise_aware",
@@ -37,14 +38,22 @@ __all__ = [
     "det_a_sigma",
 ]
 
-#: Polynomial degree of the least-squares fits (the 6-node interpolant is degree 5 too).
-FIT_DEGREE = 5
+#: Polynomial degree of the least-squares fits on windows wider than the
+#: 6-node (degree-5) interpolant. Degree 7 keeps the truncation of wide
+#: windows below their noise down to Einstein radii of ~100 pixels; degree 5
+#: leaves a bias of several noise units there.
+FIT_DEGREE = 7
 #: Nodes per axis of the candidate windows, narrowest first.
 WINDOW_LADDER = (6, 12, 24)
 #: Half-width of each confidence interval, in standard deviations of the estimate.
 CONFIDENCE = 3.0
 #: Storage precisions (relative) above this get noise-aware fits; float64 does not.
 NOISE_AWARE_PRECISION = 1e-10
+
+
+def fit_degree(n_nodes):
+    """Degree of the fit on ``n_nodes`` per axis: FIT_DEGREE, or the interpolant's."""
+    return min(FIT_DEGREE, int(n_nodes) - 1)
 
 
 def noise_aware(dtype):
