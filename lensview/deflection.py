@@ -131,17 +131,6 @@ class LocalFit:
         self.valid = valid
 
     @classmethod
-    def merge(cls, parts, choice, valid):
-        """Per point, the fit of ``parts[choice]`` (all parts cover the same points)."""
-        index = np.arange(len(choice))
-        col0, row0, window = (np.stack([getattr(p, name) for p in parts])[choice, index]
-                              for name in ("col0", "row0", "window"))
-        coefficients = np.stack([p.coefficients for p in parts])[choice, :, index]
-        noise = np.stack([p.noise for p in parts])[choice, :, index]
-        return cls(parts[0].field, col0, row0, window, coefficients.transpose(1, 0, 2, 3),
-                   noise.T, valid)
-
-    @classmethod
     def scatter(cls, parts, members, valid):
         """Join fits made for disjoint groups of points back into point order."""
         n = len(valid)
@@ -481,18 +470,33 @@ class DeflectionField:
         elif len(ladder) == 1:
             windows = np.full(xs.shape, ladder[0])
         else:
-            parts = _in_threads(lambda n: self._fit_window(xs, ys, n), ladder,
-                                len(xs) >= _THREADED_POINTS)
-            jacobians = [part.terms(xs, ys) for part in parts]
-            keys = ("a11", "a12", "a21", "a22")
-            estimates = np.array([[getattr(j, k) for k in keys] for j in jacobians])
-            sigmas = np.array([j.sigma_a for j in jacobians])
-            choice = intersect_confidence(estimates, sigmas)
-            return LocalFit.merge(parts, choice, inside)
+            windows = self._choose_windows(xs, ys, ladder)
         groups = [(n, np.nonzero(windows == n)[0]) for n in np.unique(windows)]
         parts = _in_threads(lambda group: self._fit_window(xs[group[1]], ys[group[1]], int(group[0])),
                             groups, len(xs) >= _THREADED_POINTS)
         return LocalFit.scatter(parts, [mine for _, mine in groups], inside)
+
+    def _choose_windows(self, xs, ys, ladder):
+        """Window size per point by intersecting confidence intervals (`lensview.precision`).
+
+        The choice is made once per block of cells the widest window is shared
+        by (`_fit_window`), at the block's centre: it follows how fast the field
+        bends, which changes over many cells, not from point to point.
+        """
+        ny, nx = self.shape
+        align = max(1, ladder[-1] // 6)
+        block_x, block_y = np.floor(xs).astype(np.int64) // align, np.floor(ys).astype(np.int64) // align
+        _, first, inverse = np.unique(block_y * nx + block_x, return_index=True, return_inverse=True)
+        cx = np.clip(block_x[first] * align + 0.5 * align, 0, nx - 1)
+        cy = np.clip(block_y[first] * align + 0.5 * align, 0, ny - 1)
+        parts = _in_threads(lambda n: self._fit_window(cx, cy, n), ladder,
+                            len(cx) >= _THREADED_POINTS)
+        jacobians = [part.terms(cx, cy) for part in parts]
+        keys = ("a11", "a12", "a21", "a22")
+        estimates = np.array([[getattr(j, k) for k in keys] for j in jacobians])
+        sigmas = np.array([j.sigma_a for j in jacobians])
+        choice = intersect_confidence(estimates, sigmas)
+        return np.asarray(ladder)[choice][inverse.ravel()]
 
     @property
     def _window_ladder(self):
@@ -504,11 +508,16 @@ class DeflectionField:
     def _fit_window(self, xs, ys, n_nodes):
         """Fits of both maps on n x n windows around points inside the map."""
         ny, nx = self.shape
-        col0 = window_starts(xs, nx, n_nodes)
-        row0 = window_starts(ys, ny, n_nodes)
+        # Wide windows are shared by the points of small blocks of cells (a point
+        # then sits within a sixth of the window's width from its centre, where a
+        # least-squares fit is as good as at the centre): one fit per block.
+        align = max(1, n_nodes // 6) if n_nodes > LAGRANGE_NODES else 1
+        col0 = window_starts(xs, nx, n_nodes, align)
+        row0 = window_starts(ys, ny, n_nodes, align)
+        _, first, inverse = np.unique(row0 * nx + col0, return_index=True, return_inverse=True)
         coefficients, noise = [], []
         for alpha, factor in zip(self._alpha, self._to_pixels):
-            stored = gather_windows(alpha, row0, col0, n_nodes, dtype=None)
+            stored = gather_windows(alpha, row0[first], col0[first], n_nodes, dtype=None)
             noise.append(rounding_sigma(stored) * factor)
             window = stored.astype(np.float64)
             if factor != 1.0:
@@ -516,7 +525,9 @@ class DeflectionField:
             fitted = fit_coefficients(window, n_nodes, fit_degree(n_nodes))
             # Lower-degree fits are degree-FIT_DEGREE polynomials with zero top terms.
             pad = FIT_DEGREE + 1 - fitted.shape[-1]
-            coefficients.append(np.pad(fitted, ((0, 0), (0, pad), (0, pad))) if pad else fitted)
+            fitted = np.pad(fitted, ((0, 0), (0, pad), (0, pad))) if pad else fitted
+            coefficients.append(fitted[inverse])
+            noise[-1] = noise[-1][inverse]
         return LocalFit(self, col0, row0, np.full(len(xs), n_nodes), np.array(coefficients),
                         np.array(noise), np.ones(len(xs), bool))
 

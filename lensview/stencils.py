@@ -166,13 +166,16 @@ def fit_coefficients(windows, n_nodes, degree):
     return np.matmul(projector, np.matmul(windows, projector.T))
 
 
-def window_starts(position, size, n_nodes=LAGRANGE_NODES):
+def window_starts(position, size, n_nodes=LAGRANGE_NODES, align=1):
     """First node of the ``n_nodes`` window used for each position along an axis.
 
     Windows are centred on the cell holding the position where possible and
     pushed inwards at the map edges, so every window lies inside the grid.
+    With ``align`` > 1 they are centred on blocks of ``align`` cells instead,
+    so that nearby positions share one window (and one fit).
     """
-    start = np.floor(position).astype(np.int64) - (n_nodes // 2 - 1)
+    block = np.floor(position).astype(np.int64) // align
+    start = block * align + align // 2 - (n_nodes // 2 - 1)
     return np.clip(start, 0, size - n_nodes)
 
 
