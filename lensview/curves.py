@@ -340,22 +340,26 @@ def _refine(field, xy, f, steps=NEWTON_STEPS):
     # One noise-aware fit per start point; it stays valid for sub-pixel steps.
     fit = field.local_fit(xy[:, 0], xy[:, 1], warn=False)
     idx = np.arange(len(xy))
+    negligible = None
     for _ in range(steps):
         if not len(idx):
             break
         part = fit.subset(idx)
-        terms = part.terms(xy[idx, 0], xy[idx, 1], second_derivatives=True)
+        terms = part.terms(xy[idx, 0], xy[idx, 1], second_derivatives=True,
+                           noise=negligible is None)
         value = terms.det_a(f)
         gx, gy = terms.grad_det_a(f)
         norm2 = gx * gx + gy * gy
         with np.errstate(divide="ignore", invalid="ignore"):
             step = np.column_stack([value * gx, value * gy]) / norm2[:, None]
-            # Steps far below the map's own positional noise change nothing that matters.
-            negligible = np.maximum(1e-9, 1e-3 * det_a_sigma(terms, f) / np.sqrt(norm2))
+            if negligible is None:
+                # Steps far below the map's own positional noise change nothing that matters.
+                negligible = np.maximum(1e-9, 1e-3 * det_a_sigma(terms, f) / np.sqrt(norm2))
         size = np.hypot(step[:, 0], step[:, 1])
         good = np.isfinite(size) & (size < 1.0)
         xy[idx[good]] -= step[good]
-        idx = idx[good & ~(size < negligible)]
+        keep = good & ~(size < negligible)
+        idx, negligible = idx[keep], negligible[keep]
     return xy, fit
 
 

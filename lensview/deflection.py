@@ -149,7 +149,7 @@ class LocalFit:
         return LocalFit(self.field, self.col0[index], self.row0[index], self.window[index],
                         self.coefficients[:, index], self.noise[:, index], self.valid[index])
 
-    def terms(self, x, y, *, second_derivatives=False):
+    def terms(self, x, y, *, second_derivatives=False, noise=True):
         """`LocalTerms` at positions near the points the fits were made for.
 
         Parameters
@@ -158,6 +158,8 @@ class LocalFit:
             Map pixel positions, one per fitted point (any shape of that size).
         second_derivatives : bool
             Also the gradients of T and D, for Newton steps.
+        noise : bool
+            Also ``sigma_a`` (else None), e.g. not at every Newton step.
         """
         x = np.asarray(x, dtype=float)
         shape = x.shape
@@ -173,7 +175,7 @@ class LocalFit:
         by = np.stack([monomials(sy, d, FIT_DEGREE) / scale[:, None] ** d for d in range(orders)], 2)
         # fitted[k][n, dy, dx]: d^dy/dy^dy d^dx/dx^dx of map k at point n.
         fitted = [np.matmul(by.transpose(0, 2, 1), np.matmul(c, bx)) for c in self.coefficients]
-        gram = {n: _padded_gram(int(n)) for n in np.unique(self.window)}
+        gram = {n: _padded_gram(int(n)) for n in (np.unique(self.window) if noise else ())}
         norms = np.empty((len(x), 2, 2))  # |weights| of (axis y, x) for orders 0, 1
         for n, g in gram.items():
             mine = self.window == n
@@ -209,11 +211,11 @@ class LocalFit:
         sx_, sy_ = norms[:, 1], norms[:, 0]
         terms["sigma_a"] = tuple(
             self.noise[k] * sy_[:, dy] * sx_[:, dx] + nan
-            for k in range(2) for dy, dx in ((0, 1), (1, 0)))
+            for k in range(2) for dy, dx in ((0, 1), (1, 0))) if noise else None
         for key, val in terms.items():
             if isinstance(val, tuple):
                 terms[key] = tuple(np.reshape(v, shape) for v in val)
-            else:
+            elif val is not None:
                 terms[key] = val.reshape(shape)
         terms["window"] = np.where(inside, self.window, 0).reshape(shape)
         return LocalTerms(self.field._frame, **terms)
@@ -671,17 +673,13 @@ class DeflectionField:
         grid = self._tiles.grid_shape
         if max(self.shape) <= HIERARCHY_THRESHOLD:
             return np.argwhere(np.ones(grid, bool))
-        det_a = self.coarse_det_a(f)
-        corners = (det_a[:-1, :-1], det_a[:-1, 1:], det_a[1:, :-1], det_a[1:, 1:])
-        with np.errstate(invalid="ignore"):
-            low = np.minimum(np.minimum(corners[0], corners[1]), np.minimum(corners[2], corners[3]))
-            high = np.maximum(np.maximum(corners[0], corners[1]), np.maximum(corners[2], corners[3]))
-            spread = high - low
-            # Nearest corner value to zero; any sign change is flagged anyway.
-            closest = np.minimum(np.abs(low), np.abs(high))
-            flagged = (low <= 0) & (high >= 0)
-            flagged |= closest < np.maximum(np.float32(0.02), 1.5 * spread)
-        flagged &= np.isfinite(spread)
+        self.coarse_det_a(f)  # fills the cache of coarse T and D
+        trace, determinant = self._coarse_terms
+        half = len(trace) // 2
+        bands = [(0, half + 1), (half, len(trace))]
+        flagged = np.concatenate(_in_threads(
+            lambda band: _flag_cells(trace[band[0]:band[1]], determinant[band[0]:band[1]], f),
+            bands, trace.size >= 4 * _THREADED_POINTS))
         # Coarse cells to tiles: a tile is flagged when any of its coarse cells is
         # (cells past the last tile row or column belong to the last tile).
         per_tile = TILE // COARSE_STRIDE
@@ -898,6 +896,22 @@ class _TileCache:
         out[:-1, -1] = blocks[:, -1, :TILE, TILE].reshape(-1)
         out[-1, -1] = blocks[-1, -1, TILE, TILE]
         return out[:ny, :nx]
+
+
+def _flag_cells(trace, determinant, f):
+    """Coarse cells where det A changes sign, comes close to zero, or varies too
+    fast for the coarse grid to follow."""
+    det_a = 1.0 - f * trace + f * f * determinant
+    corners = (det_a[:-1, :-1], det_a[:-1, 1:], det_a[1:, :-1], det_a[1:, 1:])
+    with np.errstate(invalid="ignore"):
+        low = np.minimum(np.minimum(corners[0], corners[1]), np.minimum(corners[2], corners[3]))
+        high = np.maximum(np.maximum(corners[0], corners[1]), np.maximum(corners[2], corners[3]))
+        spread = high - low
+        # Nearest corner value to zero; any sign change is flagged anyway.
+        closest = np.minimum(np.abs(low), np.abs(high))
+        flagged = (low <= 0) & (high >= 0)
+        flagged |= closest < np.maximum(np.float32(0.02), 1.5 * spread)
+    return flagged & np.isfinite(spread)
 
 
 def _padded_gram(n_nodes):
