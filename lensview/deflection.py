@@ -472,14 +472,23 @@ class DeflectionField:
         elif len(ladder) == 1:
             windows = np.full(xs.shape, ladder[0])
         else:
-            windows = self._choose_windows(xs, ys, ladder)
+            windows, widest, block = self._choose_windows(xs, ys, ladder)
+            # Points on the widest window share their block's fit, made for the choice.
+            shared = np.nonzero(windows == ladder[-1])[0]
+            rest = np.nonzero(windows != ladder[-1])[0]
+            parts, members = [widest.subset(block[shared])], [shared]
+            if len(rest):
+                parts.append(self.local_fit(xs[rest], ys[rest], warn=False, windows=windows[rest]))
+                members.append(rest)
+            return LocalFit.scatter(parts, members, inside)
         groups = [(n, np.nonzero(windows == n)[0]) for n in np.unique(windows)]
         parts = _in_threads(lambda group: self._fit_window(xs[group[1]], ys[group[1]], int(group[0])),
                             groups, len(xs) >= _THREADED_POINTS)
         return LocalFit.scatter(parts, [mine for _, mine in groups], inside)
 
     def _choose_windows(self, xs, ys, ladder):
-        """Window size per point by intersecting confidence intervals (`lensview.precision`).
+        """Window size per point by intersecting confidence intervals (`lensview.precision`),
+        with the widest window's fits per block and each point's block index.
 
         The choice is made once per block of cells the widest window is shared
         by (`_fit_window`), at the block's centre: it follows how fast the field
@@ -498,7 +507,8 @@ class DeflectionField:
         estimates = np.array([[getattr(j, k) for k in keys] for j in jacobians])
         sigmas = np.array([j.sigma_a for j in jacobians])
         choice = intersect_confidence(estimates, sigmas)
-        return np.asarray(ladder)[choice][inverse.ravel()]
+        inverse = inverse.ravel()
+        return np.asarray(ladder)[choice][inverse], parts[-1], inverse
 
     @property
     def _window_ladder(self):
