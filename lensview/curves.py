@@ -354,7 +354,7 @@ def _refine(field, xy, f, steps=NEWTON_STEPS):
             step = np.column_stack([value * gx, value * gy]) / norm2[:, None]
             if negligible is None:
                 # Steps far below the map's own positional noise change nothing that matters.
-                negligible = np.maximum(1e-9, 1e-3 * det_a_sigma(terms, f) / np.sqrt(norm2))
+                negligible = np.maximum(1e-9, 1e-2 * det_a_sigma(terms, f) / np.sqrt(norm2))
         size = np.hypot(step[:, 0], step[:, 1])
         good = np.isfinite(size) & (size < 1.0)
         xy[idx[good]] -= step[good]
