@@ -19,12 +19,16 @@ Two evaluation paths, both free of any global spline:
 * grid work in tiles of ``TILE`` x ``TILE`` cells, with fourth-order
   differences; T, D and the shear terms of each tile are cached, so a new
   source redshift costs one multiply-add per cached node;
-* point work (any sky position) with a local six-point Lagrange interpolant
-  of alpha whose analytic derivatives give the Jacobian there. det A is thus
-  smooth between nodes and mu is never interpolated.
+* point work (any sky position) with a local polynomial fit of alpha whose
+  analytic derivatives give the Jacobian there: the six-point Lagrange
+  interpolant on float64 maps, and on float32 maps the widest least-squares
+  window whose result agrees with narrower ones within the map's rounding
+  noise (`lensview.precision`). det A is thus smooth near each point and mu is
+  never interpolated.
 """
 
 import os
+import threading
 import warnings
 from concurrent.futures import ThreadPoolExecutor
 
@@ -65,6 +69,7 @@ _TILE_BATCH = 2048
 #: Threads for tile batches (numpy releases the GIL, so they use separate cores).
 _WORKERS = min(4, os.cpu_count() or 1)
 _POOL = None
+_POOL_LOCK = threading.Lock()
 #: Below these sizes work stays on the calling thread.
 _THREADED_POINTS = 2000
 _THREADED_TILES = 64
@@ -947,8 +952,9 @@ def _in_threads(work, batches, worth_it=True):
     global _POOL
     if len(batches) < 2 or _WORKERS < 2 or not worth_it:
         return [work(b) for b in batches]
-    if _POOL is None:
-        _POOL = ThreadPoolExecutor(max_workers=_WORKERS, thread_name_prefix="lensview")
+    with _POOL_LOCK:
+        if _POOL is None:
+            _POOL = ThreadPoolExecutor(max_workers=_WORKERS, thread_name_prefix="lensview")
     return list(_POOL.map(work, batches))
 
 

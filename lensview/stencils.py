@@ -7,7 +7,10 @@ spline over a large map:
   whole-grid quantities and contouring;
 * a six-point (degree-5) Lagrange interpolant in each axis, built from the
   6 x 6 neighbourhood of each query point, whose analytic derivatives give the
-  deflection Jacobian and its gradient anywhere on the grid.
+  deflection Jacobian and its gradient anywhere on the grid;
+* its least-squares generalisation to wider windows (tensor-product
+  polynomial fits, `fit_coefficients`), which averages down the rounding noise
+  of maps stored with few digits (see `lensview.precision`).
 """
 
 import functools

@@ -163,3 +163,15 @@ def test_fit_weights_reproduce_low_degree_polynomials_and_gather_is_exact():
     windows = gather_windows(grid, np.array([2, 0]), np.array([1, 4]), 3)
     np.testing.assert_array_equal(windows[0], grid[2:5, 1:4])
     np.testing.assert_array_equal(windows[1], grid[0:3, 4:7])
+
+
+def test_measurements_carry_the_floor_of_the_nearest_curve():
+    ax, ay, x0, y0 = curve_crop(400.0)
+    wcs = make_wcs(CROP, CROP)
+    field = lv.DeflectionField(ax, ay, wcs, units="pixel", z_lens=Z_LENS, z_norm=Z_SOURCE)
+    curve = field.critical_curves(Z_SOURCE)[0]
+    knot = wcs.pixel_to_world(*(curve.map_pixels[len(curve) // 2] + 0.7))
+    table = lv.measure_candidates(knot, field, Z_SOURCE)
+    assert table["curve_floor_arcsec"].unit == u.arcsec
+    assert table["curve_floor_arcsec"][0] == pytest.approx(curve.position_floor.to_value(u.arcsec))
+    assert 0 < table["curve_floor_arcsec"][0] < 1e-3 * table["offset_arcsec"][0]
