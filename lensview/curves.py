@@ -344,7 +344,7 @@ def _refine(field, xy, f, steps=NEWTON_STEPS):
     for _ in range(steps):
         if not len(idx):
             break
-        part = fit.subset(idx)
+        part = fit if len(idx) == len(xy) else fit.subset(idx)
         terms = part.terms(xy[idx, 0], xy[idx, 1], second_derivatives=True,
                            noise=negligible is None)
         value = terms.det_a(f)

@@ -18,7 +18,10 @@ window. The window for each point is chosen by the intersection of
 confidence intervals rule (Goldenshluger & Nemirovski 1997; Katkovnik 1999):
 estimates from a ladder of growing windows are kept while their intervals of
 +-CONFIDENCE standard deviations still share a common point, so the widest
-window whose truncation error stays within its noise wins.
+window whose truncation error stays within its noise wins. The choice follows
+how fast the field bends, which changes over many cells, so
+`DeflectionField.local_fit` makes it once per block of a few cells, and the
+points of a block share its widest window's fit.
 
 The positional uncertainty of a critical curve follows to first order from
 det A = 0: a curve point moves by sigma(det A) / |grad det A| along the
