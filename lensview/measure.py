@@ -55,6 +55,8 @@ def measure_candidates(coords, fields, z_source, *, cosmology=None, labels=None)
         index into ``coords``), ``label``, ``model``, ``ra``, ``dec``,
         ``curve_kind``, ``curve_id``, ``offset_arcsec``, ``offset_pc``,
         ``offset_ly``, ``curve_ra``, ``curve_dec`` (nearest curve point),
+        ``curve_floor_arcsec`` (the positional uncertainty the model map's own
+        storage precision leaves on that curve, `Curve.position_floor`),
         ``side`` ("inside"/"outside" of a closed curve), ``mu``, ``parity``,
         ``kappa``, ``gamma``, ``lambda_t``, ``lambda_r``,
         ``fold_coefficient_arcsec``, ``fold_mu``, ``source_ra``,
@@ -119,6 +121,7 @@ def _measure_one_model(coords, field, z_source, cosmology, labels):
     curve_id = np.full(n, -1, dtype=int)
     foot = np.full((n, 2), np.nan)
     fold = np.full(n, np.nan)
+    curve_floor = np.full(n, np.nan)
     cut_short = np.zeros(n, dtype=bool)
     if len(curves):
         points = plane_xy(plane, coords)
@@ -133,6 +136,7 @@ def _measure_one_model(coords, field, z_source, cosmology, labels):
             if not mine.any():
                 continue
             kind[mine] = curve.kind
+            curve_floor[mine] = curve.position_floor.to_value(u.arcsec)
             if curve.closed:
                 inside = point_in_polygon(points[mine], polylines[k])
                 side[mine] = np.where(inside, "inside", "outside")
@@ -150,6 +154,7 @@ def _measure_one_model(coords, field, z_source, cosmology, labels):
             nearest_on_polylines(source_points, caustic_lines, [c.closed for c in caustics]).distance,
             float)
     offset = np.where(defined, offset, np.nan)
+    curve_floor = np.where(defined, curve_floor, np.nan)
     caustic_offset = np.where(defined, caustic_offset, np.nan)
     foot = np.where(defined[:, None], foot, np.nan)
     kind = np.where(defined, kind, "")
@@ -180,6 +185,7 @@ def _measure_one_model(coords, field, z_source, cosmology, labels):
     table["offset_ly"] = (offset_pc * u.pc).to(u.lyr)
     table["curve_ra"] = foot_sky.ra.deg * u.deg
     table["curve_dec"] = foot_sky.dec.deg * u.deg
+    table["curve_floor_arcsec"] = curve_floor * u.arcsec
     table["side"] = side
     table["mu"] = mu
     table["abs_mu"] = np.abs(mu)

@@ -383,7 +383,7 @@ def _at_unresolved_nodes(field, x, y):
         for dc in (0, 1):
             r, c = row + dr, col + dc
             tile_r, tile_c = np.minimum(r // TILE, tiles_y - 1), np.minimum(c // TILE, tiles_x - 1)
-            flags = field.tiles.terms(np.column_stack([tile_r, tile_c]))["unresolved"]
+            flags = field.tiles.terms(np.column_stack([tile_r, tile_c]), shear=False)["unresolved"]
             flagged |= flags[np.arange(len(x)), r - tile_r * TILE, c - tile_c * TILE]
     return flagged
 

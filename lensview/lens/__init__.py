@@ -8,7 +8,8 @@ them).
 """
 
 from .curves import Curve, CurveSet, DroppedLoop
-from .field import DeflectionField, LocalTerms
+from .local import LocalFit, LocalTerms
+from .field import DeflectionField
 from .loading import FROM_HEADER, load_model
 
 __all__ = ["Curve", "CurveSet", "DeflectionField", "DroppedLoop", "FROM_HEADER", "LocalTerms",

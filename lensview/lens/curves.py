@@ -6,9 +6,11 @@ found in three steps:
 1. marching squares on the fourth-order det A of the tiles that may hold a
    curve (linear interpolation along cell edges, the asymptotic decider for
    saddle cells), vertices linked into ordered polylines with a graph walk;
-2. each vertex refined by Newton steps along the gradient of the local
-   Lagrange interpolant of det A (`DeflectionField.local_terms`), which moves
-   it onto the smooth zero set to ~1e-6 pixel;
+2. each vertex refined by Newton steps along the gradient of the local fit
+   of det A (`DeflectionField.local_terms`: the Lagrange interpolant on
+   float64 maps, noise-aware least-squares windows on float32 ones), which
+   moves it onto the smooth zero set to ~1e-6 pixel, or to the floor the
+   map's storage precision allows (recorded on each `Curve`);
 3. each polyline classified as tangential (lambda_t = 0) or radial
    (lambda_r = 0), and tiny loops around singular centres, where the grid
    cannot follow the profile, dropped and recorded.
@@ -28,6 +30,7 @@ from scipy.spatial import cKDTree
 
 from ..geometry import TangentPlane, mean_direction, plane_xy, polygon_area, polyline_length
 from .stencils import TILE
+from .precision import det_a_sigma
 
 __all__ = ["Curve", "DroppedLoop", "CurveSet", "critical_curves", "caustics"]
 
@@ -64,6 +67,13 @@ class Curve:
         (N, 2) vertices as (x, y) on the model's own pixel grid.
     cusps : ndarray of int
         For caustics, indices of vertices at cusps (empty otherwise).
+    position_floor_pix : float
+        For critical curves, the positional uncertainty the map's own
+        storage precision leaves (RMS over the vertices of
+        sigma(det A) / |grad det A|, map pixels; `lensview.precision`);
+        NaN for caustics.
+    position_floor : `~astropy.units.Quantity`
+        The same in arcsec (geometric mean pixel scale).
     """
 
     kind: str
@@ -74,6 +84,8 @@ class Curve:
     plane: str
     map_pixels: np.ndarray
     cusps: np.ndarray = dataclass_field(default_factory=lambda: np.zeros(0, int))
+    position_floor_pix: float = np.nan
+    position_floor: u.Quantity = dataclass_field(default_factory=lambda: np.nan * u.arcsec)
 
     def __len__(self):
         return len(self.sky)
@@ -155,20 +167,24 @@ def critical_curves(field, z_source):
     curves, dropped = [], []
     unresolved = _unresolved_nodes(field, tiles)
     for xy, closed in polylines:
-        xy = refine_onto_critical(field, xy, f)
+        xy, fit = _refine(field, xy, f)
         reason = _artefact_reason(xy, unresolved)
         if reason:
             centre = field.pixels_to_sky(*np.nanmean(xy, axis=0))
             size = float(np.nanmax(np.ptp(xy, axis=0)))
             dropped.append(DroppedLoop(field.name, centre, size, reason))
             continue
+        terms = fit.terms(xy[:, 0], xy[:, 1], second_derivatives=True)
         keep = np.isfinite(xy).all(axis=1)
         xy = xy[keep]
         if len(xy) < 2:
             continue
-        curves.append(Curve(kind=_classify(field, xy, f), sky=field.pixels_to_sky(xy[:, 0], xy[:, 1]),
+        floor = _position_floor(terms, f)
+        curves.append(Curve(kind=_classify(terms, f), sky=field.pixels_to_sky(xy[:, 0], xy[:, 1]),
                             closed=bool(closed and keep.all()), model=field.name,
-                            z_source=float(z_source), plane="image", map_pixels=xy))
+                            z_source=float(z_source), plane="image", map_pixels=xy,
+                            position_floor_pix=floor,
+                            position_floor=floor * _mean_pixel_scale(field)))
     curves.sort(key=lambda c: -len(c))
     return CurveSet(curves, dropped)
 
@@ -203,7 +219,7 @@ def caustics(field, z_source, curves=None):
 def _contour_tiles(field, tiles, f):
     """Marching squares over tiles; returns [(xy (N, 2), closed)] in map pixels."""
     tiles = np.unique(np.asarray(tiles).reshape(-1, 2), axis=0)
-    terms = field.tiles.terms(tiles)
+    terms = field.tiles.terms(tiles, shear=False)
     det = 1.0 - f * terms["T"].astype(np.float64) + f * f * terms["D"].astype(np.float64)
     ny, nx = field.shape
     row0, col0 = field.tiles.origins(tiles)
@@ -313,28 +329,41 @@ def refine_onto_critical(field, xy, f, steps=NEWTON_STEPS):
     ndarray
         (N, 2) refined positions.
     """
+    return _refine(field, xy, f, steps)[0]
+
+
+def _refine(field, xy, f, steps=NEWTON_STEPS):
+    """`refine_onto_critical`, also returning the local fits it used."""
     xy = np.array(xy, dtype=float)
-    active = np.ones(len(xy), bool)
+    # One noise-aware fit per start point; it stays valid for sub-pixel steps.
+    fit = field.local_fit(xy[:, 0], xy[:, 1], warn=False)
+    idx = np.arange(len(xy))
+    negligible = None
     for _ in range(steps):
-        if not active.any():
+        if not len(idx):
             break
-        idx = np.nonzero(active)[0]
-        terms = field.local_terms(xy[idx, 0], xy[idx, 1], second_derivatives=True, warn=False)
+        part = fit if len(idx) == len(xy) else fit.subset(idx)
+        terms = part.terms(xy[idx, 0], xy[idx, 1], second_derivatives=True,
+                           noise=negligible is None)
         value = terms.det_a(f)
         gx, gy = terms.grad_det_a(f)
         norm2 = gx * gx + gy * gy
         with np.errstate(divide="ignore", invalid="ignore"):
             step = np.column_stack([value * gx, value * gy]) / norm2[:, None]
+            if negligible is None:
+                # Steps far below the map's own positional noise change nothing that matters.
+                negligible = np.maximum(1e-9, 1e-2 * det_a_sigma(terms, f) / np.sqrt(norm2))
         size = np.hypot(step[:, 0], step[:, 1])
         good = np.isfinite(size) & (size < 1.0)
         xy[idx[good]] -= step[good]
-        active[idx[~good | (size < 1e-9)]] = False
-    return xy
+        keep = good & ~(size < negligible)
+        idx, negligible = idx[keep], negligible[keep]
+    return xy, fit
 
 
 def _unresolved_nodes(field, tiles):
     tiles = np.unique(np.asarray(tiles).reshape(-1, 2), axis=0)
-    flags = field.tiles.terms(tiles)["unresolved"]
+    flags = field.tiles.terms(tiles, shear=False)["unresolved"]
     k, r, c = np.nonzero(flags)
     row0, col0 = field.tiles.origins(tiles)
     return np.column_stack([col0[k] + c, row0[k] + r]).astype(float)
@@ -354,8 +383,21 @@ def _artefact_reason(xy, unresolved):
     return None
 
 
-def _classify(field, xy, f):
-    terms = field.local_terms(xy[:, 0], xy[:, 1], warn=False)
+def _position_floor(terms, f):
+    """RMS over the vertices of sigma(det A) / |grad det A| (map pixels)."""
+    gx, gy = terms.grad_det_a(f)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        per_vertex = det_a_sigma(terms, f) / np.hypot(gx, gy)
+    per_vertex = per_vertex[np.isfinite(per_vertex)]
+    return float(np.sqrt(np.mean(per_vertex**2))) if len(per_vertex) else np.nan
+
+
+def _mean_pixel_scale(field):
+    """Geometric mean pixel scale: an isotropic floor in pixels to arcsec."""
+    return np.sqrt(np.prod(field.pixel_scales.to_value(u.arcsec))) * u.arcsec
+
+
+def _classify(terms, f):
     lambda_t, lambda_r = terms.eigenvalues(f)
     return "tangential" if np.nanmedian(np.abs(lambda_t)) <= np.nanmedian(np.abs(lambda_r)) \
         else "radial"

@@ -19,13 +19,15 @@ Two evaluation paths, both free of any global spline:
 * grid work in tiles of ``TILE`` x ``TILE`` cells, with fourth-order
   differences; T, D and the shear terms of each tile are cached, so a new
   source redshift costs one multiply-add per cached node;
-* point work (any sky position) with a local six-point Lagrange interpolant
-  of alpha whose analytic derivatives give the Jacobian there. det A is thus
-  smooth between nodes and mu is never interpolated.
+* point work (any sky position) with a local polynomial fit of alpha whose
+  analytic derivatives give the Jacobian there: the six-point Lagrange
+  interpolant on float64 maps, and on float32 maps the widest least-squares
+  window whose result agrees with narrower ones within the map's rounding
+  noise (`lensview.precision`). det A is thus smooth near each point and mu is
+  never interpolated.
 """
 
 import warnings
-import weakref
 
 import numpy as np
 import astropy.units as u
@@ -38,68 +40,34 @@ from ..checks import deflection_units, positive_redshift
 from ..errors import LensviewInputError, OutsideFootprintWarning
 from ..io.fits import read_deflection
 from .curves import caustics, critical_curves
+from .local import LocalFit, LocalTerms
+from .parallel import THREADED_POINTS, in_threads
+from .precision import (
+    FIT_DEGREE,
+    WINDOW_LADDER,
+    fit_degree,
+    intersect_confidence,
+    noise_aware,
+    rounding_sigma,
+)
 from .stencils import (
-    TILE,
     LAGRANGE_NODES,
-    central_difference_2,
-    central_difference_4,
+    TILE,
+    fit_coefficients,
     gather_windows,
-    lagrange_weights,
     window_starts,
 )
+from .tiles import TileCache
 
-__all__ = ["DeflectionField", "LocalTerms"]
+__all__ = ["DeflectionField", "LocalTerms", "LocalFit"]
 
 #: Maps larger than this (pixels per side) locate curves on a coarse grid first.
 HIERARCHY_THRESHOLD = 1024
 #: Spacing of the coarse grid used to locate curves on large maps.
 COARSE_STRIDE = 4
-#: Relative disagreement between fourth- and second-order differences above
-#: which a node counts as unresolved by the grid (e.g. a singular centre).
-UNRESOLVED_TOLERANCE = 0.05
-_TILE_BATCH = 2048
+#: Points fitted at once by `DeflectionField.local_fit`.
+_CHUNK_POINTS = 8192
 _CURVE_CACHE_SIZE = 32
-
-
-class LocalTerms:
-    """Deflection (map pixels, unscaled) and its derivatives at points.
-
-    Attributes ``ax, ay, a11, a12, a21, a22`` are arrays; with second
-    derivatives requested also ``grad_T`` and ``grad_D`` (each a pair of
-    arrays, d/dx and d/dy) for Newton steps on det A.
-    """
-
-    def __init__(self, frame, **arrays):
-        self.frame = frame
-        self.__dict__.update(arrays)
-
-    def det_a(self, f):
-        """det A for scaling factor ``f`` (design notes, section 4)."""
-        trace = self.a11 + self.a22
-        determinant = self.a11 * self.a22 - self.a12 * self.a21
-        return 1.0 - f * trace + f * f * determinant
-
-    def grad_det_a(self, f):
-        """Gradient of det A in map pixels, as (d/dx, d/dy)."""
-        return tuple(-f * gt + f * f * gd for gt, gd in zip(self.grad_T, self.grad_D))
-
-    def convergence(self, f):
-        return 0.5 * f * (self.a11 + self.a22)
-
-    def shear(self, f):
-        """Shear components (gamma1, gamma2) on the sky's axes.
-
-        The Jacobian is taken to sky axes first (M a M^-1, M the pixel-to-
-        plane matrix): trace and determinant survive the change of frame, the
-        shear only when pixels are square.
-        """
-        return _sky_shear(self.a11, self.a12, self.a21, self.a22, self.frame, f)
-
-    def eigenvalues(self, f):
-        """(lambda_t, lambda_r) of the symmetric part of A."""
-        kappa = self.convergence(f)
-        gamma = np.hypot(*self.shear(f))
-        return 1.0 - kappa - gamma, 1.0 - kappa + gamma
 
 
 class DeflectionField:
@@ -159,6 +127,7 @@ class DeflectionField:
         _warn_if_not_linear(self.wcs, self.name)
         self.shape = alpha_x.shape
         self._alpha = (alpha_x, alpha_y)
+        self._noise_aware = noise_aware(alpha_x.dtype) or noise_aware(alpha_y.dtype)
         scales = proj_plane_pixel_scales(self.wcs) * 3600.0
         #: arcsec per pixel along the map's x and y axes
         self.pixel_scales = scales * u.arcsec
@@ -167,7 +136,7 @@ class DeflectionField:
         matrix = matrix / np.sqrt(abs(np.linalg.det(matrix)))
         #: (M, M^-1): pixel offsets to sky-plane offsets, normalised to unit determinant
         self._frame = (matrix, np.linalg.inv(matrix))
-        self._tiles = _TileCache(self)
+        self._tiles = TileCache(self)
         self._coarse_terms = None
         self._curve_cache = {}
         self._caustic_cache = {}
@@ -329,8 +298,11 @@ class DeflectionField:
                 "cutout inside the model's footprint.")
 
     # ------------------------------------------------------------------ point evaluation
-    def local_terms(self, x, y, *, second_derivatives=False, warn=True):
+    def local_terms(self, x, y, *, second_derivatives=False, warn=True, windows=None):
         """Deflection and Jacobian at map pixel positions.
+
+        A shortcut for ``local_fit(x, y).terms(x, y)``; see `local_fit` for
+        the choice of fit.
 
         Parameters
         ----------
@@ -340,64 +312,137 @@ class DeflectionField:
             Also return the gradients of T and D, for Newton steps.
         warn : bool
             Warn when positions lie outside the map (they get NaN).
+        windows : array_like of int, optional
+            As for `local_fit`.
 
         Returns
         -------
         LocalTerms
+            Also carries ``window`` (nodes per axis used at each point) and
+            ``sigma_a`` (standard deviations of a11, a12, a21, a22 from the
+            map's rounding noise).
         """
-        x = np.atleast_1d(np.asarray(x, dtype=float))
-        y = np.atleast_1d(np.asarray(y, dtype=float))
-        shape = x.shape
-        x, y = x.ravel(), y.ravel()
+        return self.local_fit(x, y, warn=warn, windows=windows).terms(
+            x, y, second_derivatives=second_derivatives)
+
+    def local_fit(self, x, y, *, warn=True, windows=None):
+        """Local polynomial fits of both maps around map pixel positions.
+
+        On float64 maps the fit is the 6-node (degree-5) Lagrange
+        interpolant. On maps stored with less precision (float32) each point
+        gets the widest least-squares window of
+        `lensview.precision.WINDOW_LADDER` whose Jacobian agrees with the
+        narrower windows' within their rounding noise (`lensview.precision`).
+        The fits stay valid for positions moved by up to a pixel, so Newton
+        iterations evaluate them without gathering the map again.
+
+        Parameters
+        ----------
+        x, y : array_like
+            Map pixel positions (0-based).
+        warn : bool
+            Warn when positions lie outside the map (their terms are NaN).
+        windows : array_like of int, optional
+            Nodes per axis for each point (e.g. the ``window`` of earlier
+            `LocalTerms`); skips the choice.
+
+        Returns
+        -------
+        LocalFit
+        """
+        x = np.atleast_1d(np.asarray(x, dtype=float)).ravel()
+        y = np.atleast_1d(np.asarray(y, dtype=float)).ravel()
         inside = self.inside(x, y)
         if warn and not inside.all():
             _warn_outside(self.name, int((~inside).sum()), x.size)
-        ny, nx = self.shape
+        if x.size > _CHUNK_POINTS:
+            # Wide windows hold hundreds of nodes per point: bound the memory in flight.
+            members = [np.arange(i, min(i + _CHUNK_POINTS, x.size))
+                       for i in range(0, x.size, _CHUNK_POINTS)]
+            given = None if windows is None else np.broadcast_to(
+                np.asarray(windows, dtype=np.int64).ravel(), x.shape)
+            parts = [self.local_fit(x[m], y[m], warn=False,
+                                    windows=None if given is None else given[m]) for m in members]
+            return LocalFit.scatter(parts, members, inside)
         xs = np.where(inside, x, 0.0)
         ys = np.where(inside, y, 0.0)
-        col0 = window_starts(xs, nx)
-        row0 = window_starts(ys, ny)
-        tx, ty = xs - col0, ys - row0
-        wx = [lagrange_weights(tx, d) for d in range(3 if second_derivatives else 2)]
-        wy = [lagrange_weights(ty, d) for d in range(3 if second_derivatives else 2)]
-        out = {}
-        for label, alpha, factor in (("x", self._alpha[0], self._to_pixels[0]),
-                                     ("y", self._alpha[1], self._to_pixels[1])):
-            window = gather_windows(alpha, row0, col0) * factor
-            along_x = [np.einsum("nji,ni->nj", window, w) for w in wx]
+        ladder = self._window_ladder
+        if windows is not None:
+            windows = np.broadcast_to(np.asarray(windows, dtype=np.int64).ravel(), xs.shape)
+            windows = np.where(np.isin(windows, ladder), windows, ladder[0])
+        elif len(ladder) == 1:
+            windows = np.full(xs.shape, ladder[0])
+        else:
+            windows, widest, block = self._choose_windows(xs, ys, ladder)
+            # Points on the widest window share their block's fit, made for the choice.
+            shared = np.nonzero(windows == ladder[-1])[0]
+            rest = np.nonzero(windows != ladder[-1])[0]
+            parts, members = [widest.subset(block[shared])], [shared]
+            if len(rest):
+                parts.append(self.local_fit(xs[rest], ys[rest], warn=False, windows=windows[rest]))
+                members.append(rest)
+            return LocalFit.scatter(parts, members, inside)
+        groups = [(n, np.nonzero(windows == n)[0]) for n in np.unique(windows)]
+        parts = in_threads(lambda group: self._fit_window(xs[group[1]], ys[group[1]], int(group[0])),
+                            groups, len(xs) >= THREADED_POINTS)
+        return LocalFit.scatter(parts, [mine for _, mine in groups], inside)
 
-            def value(dy, dx):
-                return np.einsum("nj,nj->n", wy[dy], along_x[dx])
+    def _choose_windows(self, xs, ys, ladder):
+        """Window size per point by intersecting confidence intervals (`lensview.precision`),
+        with the widest window's fits per block and each point's block index.
 
-            out["a" + label] = value(0, 0)
-            out[f"d{label}_dx"] = value(0, 1)
-            out[f"d{label}_dy"] = value(1, 0)
-            if second_derivatives:
-                out[f"d{label}_dxx"] = value(0, 2)
-                out[f"d{label}_dxy"] = value(1, 1)
-                out[f"d{label}_dyy"] = value(2, 0)
-        for key in out:
-            out[key] = np.where(inside, out[key], np.nan)
-        terms = dict(ax=out["ax"], ay=out["ay"], a11=out["dx_dx"], a12=out["dx_dy"],
-                     a21=out["dy_dx"], a22=out["dy_dy"])
-        if second_derivatives:
-            a11, a12, a21, a22 = terms["a11"], terms["a12"], terms["a21"], terms["a22"]
-            grad = {  # d(a_ij)/dx, d(a_ij)/dy
-                "a11": (out["dx_dxx"], out["dx_dxy"]), "a12": (out["dx_dxy"], out["dx_dyy"]),
-                "a21": (out["dy_dxx"], out["dy_dxy"]), "a22": (out["dy_dxy"], out["dy_dyy"]),
-            }
-            terms["grad_T"] = tuple(grad["a11"][k] + grad["a22"][k] for k in range(2))
-            terms["grad_D"] = tuple(
-                a22 * grad["a11"][k] + a11 * grad["a22"][k]
-                - a21 * grad["a12"][k] - a12 * grad["a21"][k]
-                for k in range(2)
-            )
-        for key, val in terms.items():
-            if isinstance(val, tuple):
-                terms[key] = tuple(v.reshape(shape) for v in val)
-            else:
-                terms[key] = val.reshape(shape)
-        return LocalTerms(self._frame, **terms)
+        The choice is made once per block of cells the widest window is shared
+        by (`_fit_window`), at the block's centre: it follows how fast the field
+        bends, which changes over many cells, not from point to point.
+        """
+        ny, nx = self.shape
+        align = max(1, ladder[-1] // 6)
+        block_x, block_y = np.floor(xs).astype(np.int64) // align, np.floor(ys).astype(np.int64) // align
+        _, first, inverse = np.unique(block_y * nx + block_x, return_index=True, return_inverse=True)
+        cx = np.clip(block_x[first] * align + 0.5 * align, 0, nx - 1)
+        cy = np.clip(block_y[first] * align + 0.5 * align, 0, ny - 1)
+        parts = in_threads(lambda n: self._fit_window(cx, cy, n), ladder,
+                            len(cx) >= THREADED_POINTS)
+        jacobians = [part.terms(cx, cy) for part in parts]
+        keys = ("a11", "a12", "a21", "a22")
+        estimates = np.array([[getattr(j, k) for k in keys] for j in jacobians])
+        sigmas = np.array([j.sigma_a for j in jacobians])
+        choice = intersect_confidence(estimates, sigmas)
+        inverse = inverse.ravel()
+        return np.asarray(ladder)[choice][inverse], parts[-1], inverse
+
+    @property
+    def _window_ladder(self):
+        """Candidate window sizes for point fits on this map."""
+        if not self._noise_aware:
+            return (LAGRANGE_NODES,)
+        return tuple(n for n in WINDOW_LADDER if n <= min(self.shape))
+
+    def _fit_window(self, xs, ys, n_nodes):
+        """Fits of both maps on n x n windows around points inside the map."""
+        ny, nx = self.shape
+        # Wide windows are shared by the points of small blocks of cells (a point
+        # then sits within a sixth of the window's width from its centre, where a
+        # least-squares fit is as good as at the centre): one fit per block.
+        align = max(1, n_nodes // 6) if n_nodes > LAGRANGE_NODES else 1
+        col0 = window_starts(xs, nx, n_nodes, align)
+        row0 = window_starts(ys, ny, n_nodes, align)
+        _, first, inverse = np.unique(row0 * nx + col0, return_index=True, return_inverse=True)
+        coefficients, noise = [], []
+        for alpha, factor in zip(self._alpha, self._to_pixels):
+            stored = gather_windows(alpha, row0[first], col0[first], n_nodes, dtype=None)
+            noise.append(rounding_sigma(stored) * factor)
+            window = stored.astype(np.float64)
+            if factor != 1.0:
+                window *= factor
+            fitted = fit_coefficients(window, n_nodes, fit_degree(n_nodes))
+            # Lower-degree fits are degree-FIT_DEGREE polynomials with zero top terms.
+            pad = FIT_DEGREE + 1 - fitted.shape[-1]
+            fitted = np.pad(fitted, ((0, 0), (0, pad), (0, pad))) if pad else fitted
+            coefficients.append(fitted[inverse])
+            noise[-1] = noise[-1][inverse]
+        return LocalFit(self, col0, row0, np.full(len(xs), n_nodes), np.array(coefficients),
+                        np.array(noise), np.ones(len(xs), bool))
 
     def lens_quantities(self, coords, z_source, *, warn=True):
         """All local lensing quantities at sky positions.
@@ -458,14 +503,15 @@ class DeflectionField:
         """
         f = self.scaling_factor(z_source)
         x, y = self.sky_to_pixels(coords)
-        terms = self.local_terms(x, y)
+        # Deflection values need no noise-aware window: rounding reaches them unamplified.
+        terms = self.local_terms(x, y, windows=LAGRANGE_NODES)
         traced = self.pixels_to_sky(x - f * terms.ax, y - f * terms.ay)
         return traced.reshape(np.shape(coords)) if np.shape(coords) else traced[0]
 
     def trace_pixels(self, x, y, z_source):
         """Ray-trace map pixel positions; returns source-plane map pixels."""
         f = self.scaling_factor(z_source)
-        terms = self.local_terms(x, y, warn=False)
+        terms = self.local_terms(x, y, warn=False, windows=LAGRANGE_NODES)
         return x - f * terms.ax, y - f * terms.ay
 
     # ------------------------------------------------------------------ grid evaluation
@@ -517,8 +563,9 @@ class DeflectionField:
         """det A on the coarse locator grid (every COARSE_STRIDE-th node)."""
         if self._coarse_terms is None:
             step = COARSE_STRIDE
-            ax = np.asarray(self._alpha[0][::step, ::step], np.float64) * self._to_pixels[0]
-            ay = np.asarray(self._alpha[1][::step, ::step], np.float64) * self._to_pixels[1]
+            # float32 is ample for locating tiles, and halves the work on large maps.
+            ax = np.asarray(self._alpha[0][::step, ::step], np.float32) * np.float32(self._to_pixels[0])
+            ay = np.asarray(self._alpha[1][::step, ::step], np.float32) * np.float32(self._to_pixels[1])
             a11 = np.gradient(ax, step, axis=1)
             a12 = np.gradient(ax, step, axis=0)
             a21 = np.gradient(ay, step, axis=1)
@@ -537,20 +584,23 @@ class DeflectionField:
         grid = self._tiles.grid_shape
         if max(self.shape) <= HIERARCHY_THRESHOLD:
             return np.argwhere(np.ones(grid, bool))
-        det_a = self.coarse_det_a(f)
-        corners = np.stack([det_a[:-1, :-1], det_a[:-1, 1:], det_a[1:, :-1], det_a[1:, 1:]])
-        with np.errstate(invalid="ignore"):
-            low = np.min(corners, axis=0)
-            high = np.max(corners, axis=0)
-            spread = high - low
-            closest = np.min(np.abs(corners), axis=0)
-            flagged = (low <= 0) & (high >= 0)
-            flagged |= closest < np.maximum(0.05, 1.5 * spread)
-        flagged &= np.isfinite(spread)
-        rows, cols = np.nonzero(flagged)
+        self.coarse_det_a(f)  # fills the cache of coarse T and D
+        trace, determinant = self._coarse_terms
+        half = len(trace) // 2
+        bands = [(0, half + 1), (half, len(trace))]
+        flagged = np.concatenate(in_threads(
+            lambda band: _flag_cells(trace[band[0]:band[1]], determinant[band[0]:band[1]], f),
+            bands, trace.size >= 4 * THREADED_POINTS))
+        # Coarse cells to tiles: a tile is flagged when any of its coarse cells is
+        # (cells past the last tile row or column belong to the last tile).
         per_tile = TILE // COARSE_STRIDE
-        tiles = np.zeros(grid, bool)
-        tiles[np.minimum(rows // per_tile, grid[0] - 1), np.minimum(cols // per_tile, grid[1] - 1)] = True
+        padded = np.zeros((grid[0] + 1) * per_tile, bool), np.zeros((grid[1] + 1) * per_tile, bool)
+        cells = np.zeros((len(padded[0]), len(padded[1])), bool)
+        cells[:flagged.shape[0], :flagged.shape[1]] = flagged
+        tiles = cells.reshape(grid[0] + 1, per_tile, grid[1] + 1, per_tile).any(axis=(1, 3))
+        tiles[-2, :] |= tiles[-1, :]
+        tiles[:, -2] |= tiles[:, -1]
+        tiles = tiles[:-1, :-1]
         tiles = ndimage.binary_dilation(tiles, structure=np.ones((3, 3), bool))
         return np.argwhere(tiles)
 
@@ -589,113 +639,20 @@ class DeflectionField:
         return self._tiles
 
 
-class _TileCache:
-    """Fourth-order grid terms per tile, computed once and kept.
-
-    Each tile holds the nodes ``TILE*r .. TILE*r + TILE`` in each axis (shared
-    edges are computed twice, identically). Stored per node: T, D, the two
-    shear terms G1, G2 on sky axes (see `LocalTerms.shear`), and whether the
-    grid resolves the field there.
-    """
-
-    NODES = TILE + 1
-
-    def __init__(self, field):
-        # A weak reference: no cycle with the field, so its maps are freed with its last user.
-        self.field = weakref.proxy(field)
-        ny, nx = field.shape
-        self.grid_shape = (-(-(ny - 1) // TILE), -(-(nx - 1) // TILE))
-        self.slot = np.full(self.grid_shape, -1, dtype=np.int64)
-        self.store = {key: np.empty((0, self.NODES, self.NODES), np.float32)
-                      for key in ("T", "D", "G1", "G2")}
-        self.store["unresolved"] = np.empty((0, self.NODES, self.NODES), bool)
-
-    def terms(self, tiles):
-        """Stacks of cached terms for tiles (computing the missing ones)."""
-        tiles = np.asarray(tiles, dtype=np.int64).reshape(-1, 2)
-        missing = tiles[self.slot[tiles[:, 0], tiles[:, 1]] < 0]
-        if len(missing):
-            missing = np.unique(missing, axis=0)
-            start = len(self.store["T"])
-            parts = [self._compute(missing[i:i + _TILE_BATCH])
-                     for i in range(0, len(missing), _TILE_BATCH)]
-            for key in self.store:
-                self.store[key] = np.concatenate([self.store[key]] + [p[key] for p in parts])
-            self.slot[missing[:, 0], missing[:, 1]] = start + np.arange(len(missing))
-        index = self.slot[tiles[:, 0], tiles[:, 1]]
-        return {key: value[index] for key, value in self.store.items()}
-
-    def origins(self, tiles):
-        """Global (row, col) of the first node of each tile."""
-        return tiles[:, 0] * TILE, tiles[:, 1] * TILE
-
-    def _compute(self, tiles):
-        field = self.field
-        ny, nx = field.shape
-        pad = 2
-        width = self.NODES + 2 * pad
-        row0, col0 = self.origins(tiles)
-        offsets = np.arange(width) - pad
-        rows = row0[:, None] + offsets
-        cols = col0[:, None] + offsets
-        valid = ((rows >= 0) & (rows < ny))[:, :, None] & ((cols >= 0) & (cols < nx))[:, None, :]
-        rows_c = np.clip(rows, 0, ny - 1)
-        cols_c = np.clip(cols, 0, nx - 1)
-        windows = []
-        for alpha, factor in zip(field._alpha, field._to_pixels):
-            window = np.asarray(alpha[rows_c[:, :, None], cols_c[:, None, :]], np.float64)
-            window *= factor
-            window[~valid] = np.nan
-            windows.append(window)
-        core = slice(pad, pad + self.NODES)
-        derivatives4, derivatives2 = {}, {}
-        for label, window in zip("xy", windows):
-            derivatives4[label + "x"] = central_difference_4(window, 2)[:, core, :]
-            derivatives4[label + "y"] = central_difference_4(window, 1)[:, :, core]
-            derivatives2[label + "x"] = central_difference_2(window, 2)[:, core, :]
-            derivatives2[label + "y"] = central_difference_2(window, 1)[:, :, core]
-        a11, a12 = derivatives4["xx"], derivatives4["xy"]
-        a21, a22 = derivatives4["yx"], derivatives4["yy"]
-        disagreement = np.zeros_like(a11)
-        for key in derivatives4:
-            with np.errstate(invalid="ignore"):
-                relative = np.abs(derivatives4[key] - derivatives2[key]) / np.maximum(
-                    np.abs(derivatives4[key]), 1.0)
-            disagreement = np.fmax(disagreement, relative)
-        gamma1, gamma2 = _sky_shear(a11, a12, a21, a22, field._frame, 1.0)
-        return {
-            "T": (a11 + a22).astype(np.float32),
-            "D": (a11 * a22 - a12 * a21).astype(np.float32),
-            "G1": gamma1.astype(np.float32),
-            "G2": gamma2.astype(np.float32),
-            "unresolved": disagreement > UNRESOLVED_TOLERANCE,
-        }
-
-    def assemble(self, stack):
-        """Join per-tile node stacks of *every* tile (row-major) into one map."""
-        ny, nx = self.field.shape
-        rows, cols = self.grid_shape
-        n = self.NODES
-        out = np.empty((rows * TILE + 1, cols * TILE + 1), dtype=stack.dtype)
-        blocks = stack.reshape(rows, cols, n, n)
-        out[:-1, :-1] = blocks[:, :, :TILE, :TILE].transpose(0, 2, 1, 3).reshape(
-            rows * TILE, cols * TILE)
-        out[-1, :-1] = blocks[-1, :, TILE, :TILE].reshape(-1)
-        out[:-1, -1] = blocks[:, -1, :TILE, TILE].reshape(-1)
-        out[-1, -1] = blocks[-1, -1, TILE, TILE]
-        return out[:ny, :nx]
-
-
-def _sky_shear(a11, a12, a21, a22, frame, f):
-    """Shear (gamma1, gamma2) of the pixel-frame Jacobian a, on sky axes."""
-    (m11, m12), (m21, m22) = frame[0]
-    (n11, n12), (n21, n22) = frame[1]
-    # b = M a M^-1, written out for stacks of 2 x 2 matrices.
-    c11, c12 = a11 * n11 + a12 * n21, a11 * n12 + a12 * n22
-    c21, c22 = a21 * n11 + a22 * n21, a21 * n12 + a22 * n22
-    b11, b12 = m11 * c11 + m12 * c21, m11 * c12 + m12 * c22
-    b21, b22 = m21 * c11 + m22 * c21, m21 * c12 + m22 * c22
-    return 0.5 * f * (b11 - b22), 0.5 * f * (b12 + b21)
+def _flag_cells(trace, determinant, f):
+    """Coarse cells where det A changes sign, comes close to zero, or varies too
+    fast for the coarse grid to follow."""
+    det_a = 1.0 - f * trace + f * f * determinant
+    corners = (det_a[:-1, :-1], det_a[:-1, 1:], det_a[1:, :-1], det_a[1:, 1:])
+    with np.errstate(invalid="ignore"):
+        low = np.minimum(np.minimum(corners[0], corners[1]), np.minimum(corners[2], corners[3]))
+        high = np.maximum(np.maximum(corners[0], corners[1]), np.maximum(corners[2], corners[3]))
+        spread = high - low
+        # Nearest corner value to zero; any sign change is flagged anyway.
+        closest = np.minimum(np.abs(low), np.abs(high))
+        flagged = (low <= 0) & (high >= 0)
+        flagged |= closest < np.maximum(np.float32(0.02), 1.5 * spread)
+    return flagged & np.isfinite(spread)
 
 
 def _as_map(values, label):
@@ -708,8 +665,6 @@ def _as_map(values, label):
     if not np.issubdtype(array.dtype, np.floating):
         array = array.astype(np.float64)
     return array
-
-
 
 
 def _icrs(coords):

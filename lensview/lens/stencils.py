@@ -7,8 +7,13 @@ spline over a large map:
   whole-grid quantities and contouring;
 * a six-point (degree-5) Lagrange interpolant in each axis, built from the
   6 x 6 neighbourhood of each query point, whose analytic derivatives give the
-  deflection Jacobian and its gradient anywhere on the grid.
+  deflection Jacobian and its gradient anywhere on the grid;
+* its least-squares generalisation to wider windows (tensor-product
+  polynomial fits, `fit_coefficients`), which averages down the rounding noise
+  of maps stored with few digits (see `lensview.precision`).
 """
+
+import functools
 
 import numpy as np
 
@@ -16,6 +21,11 @@ __all__ = [
     "TILE",
     "LAGRANGE_NODES",
     "lagrange_weights",
+    "fit_weights",
+    "fit_frame",
+    "fit_projector",
+    "fit_coefficients",
+    "monomials",
     "window_starts",
     "gather_windows",
     "central_difference_4",
@@ -78,25 +88,115 @@ def lagrange_weights(t, derivative=0):
     return basis @ _COEFFS
 
 
-def window_starts(position, size):
-    """First node of the 6-node window used for each position along an axis.
+def fit_weights(t, derivative, n_nodes, degree):
+    """Weights of a least-squares polynomial fit at offsets ``t``.
+
+    The polynomial of ``degree`` that fits ``n_nodes`` equally spaced node
+    values best in the least-squares sense (Savitzky & Golay 1964, for any
+    evaluation point rather than the centre only); with
+    ``n_nodes == degree + 1`` it is the Lagrange interpolant. Rounding noise
+    of the node values, if white, reaches the fitted value or derivative
+    multiplied by the Euclidean norm of these weights.
+
+    Parameters
+    ----------
+    t : ndarray
+        Positions in units of the grid spacing from the first node of the
+        window (nodes at 0, 1, ..., n_nodes - 1).
+    derivative : int
+        0, 1 or 2.
+    n_nodes, degree : int
+
+    Returns
+    -------
+    ndarray
+        Shape ``t.shape + (n_nodes,)``.
+    """
+    centre, scale = fit_frame(n_nodes)
+    s = (np.asarray(t, dtype=float) - centre) / scale
+    return (monomials(s, derivative, degree) @ fit_projector(n_nodes, degree)) / scale**derivative
+
+
+def fit_frame(n_nodes):
+    """(centre, half-width) of an ``n_nodes`` window, in nodes from its first node.
+
+    Fits use the scaled coordinate s = (t - centre) / half-width, in [-1, 1]
+    over the window, which keeps the normal equations well conditioned.
+    """
+    centre = 0.5 * (np.asarray(n_nodes, dtype=float) - 1.0)
+    return centre, np.maximum(centre, 1.0)
+
+
+@functools.lru_cache(maxsize=64)
+def fit_projector(n_nodes, degree):
+    """Least-squares projector P (degree+1, n_nodes): node values to monomial
+    coefficients in the scaled coordinate of `fit_frame`."""
+    centre, scale = fit_frame(n_nodes)
+    nodes = (np.arange(n_nodes) - centre) / scale
+    projector = np.linalg.pinv(np.vander(nodes, degree + 1, increasing=True))
+    projector.setflags(write=False)
+    return projector
+
+
+def monomials(s, derivative, degree):
+    """d^k/ds^k of the monomials 1, s, ..., s**degree at ``s``; shape s.shape + (degree+1,)."""
+    s = np.asarray(s, dtype=float)
+    powers = np.arange(degree + 1)
+    falling = np.ones(degree + 1)
+    for k in range(derivative):
+        falling = falling * np.maximum(powers - k, 0)
+    plain = np.ones(s.shape + (degree + 1,))
+    for p in range(1, degree + 1 - derivative):
+        plain[..., p] = plain[..., p - 1] * s
+    # d^k/ds^k s^p = falling(p, k) s^(p - k): the plain monomials shifted up by k.
+    basis = np.zeros_like(plain)
+    basis[..., derivative:] = plain[..., :degree + 1 - derivative]
+    return basis * falling
+
+
+def fit_coefficients(windows, n_nodes, degree):
+    """Tensor-product least-squares polynomials fitted to stacks of windows.
+
+    Parameters
+    ----------
+    windows : ndarray
+        (N, n_nodes, n_nodes) node values (rows = y, columns = x), float64.
+    n_nodes, degree : int
+
+    Returns
+    -------
+    ndarray
+        (N, degree+1, degree+1) coefficients ``C`` with the fit
+        ``sum_pq C[p, q] s_y**p s_x**q`` in the coordinates of `fit_frame`.
+    """
+    projector = fit_projector(n_nodes, degree)
+    # Broadcast matrix products: faster here than one reshaped BLAS call plus a transpose.
+    return np.matmul(projector, np.matmul(windows, projector.T))
+
+
+def window_starts(position, size, n_nodes=LAGRANGE_NODES, align=1):
+    """First node of the ``n_nodes`` window used for each position along an axis.
 
     Windows are centred on the cell holding the position where possible and
     pushed inwards at the map edges, so every window lies inside the grid.
+    With ``align`` > 1 they are centred on blocks of ``align`` cells instead,
+    so that nearby positions share one window (and one fit).
     """
-    start = np.floor(position).astype(np.int64) - (LAGRANGE_NODES // 2 - 1)
-    return np.clip(start, 0, size - LAGRANGE_NODES)
+    block = np.floor(position).astype(np.int64) // align
+    start = block * align + align // 2 - (n_nodes // 2 - 1)
+    return np.clip(start, 0, size - n_nodes)
 
 
-def gather_windows(array, row_start, col_start, size=LAGRANGE_NODES):
+def gather_windows(array, row_start, col_start, size=LAGRANGE_NODES, dtype=np.float64):
     """Stack of ``size`` x ``size`` windows of ``array`` at the given corners.
 
-    Works on memory-mapped arrays of any byte order; the result is float64.
+    Works on memory-mapped arrays of any byte order; the result is float64,
+    or the stored dtype with ``dtype=None``.
     """
-    offsets = np.arange(size)
-    rows = row_start[:, None, None] + offsets[None, :, None]
-    cols = col_start[:, None, None] + offsets[None, None, :]
-    return np.asarray(array[rows, cols], dtype=np.float64)
+    # Indexing a strided view of all windows copies whole window rows at a time,
+    # several times faster than indexing every node.
+    windows = np.lib.stride_tricks.sliding_window_view(array, (size, size))
+    return np.asarray(windows[row_start, col_start], dtype=dtype)
 
 
 def central_difference_4(stack, axis):

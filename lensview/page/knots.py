@@ -23,6 +23,7 @@ _MEASURE_COLUMNS = (
     ("offset_arcsec", "offset (arcsec)", "{:.4f}"),
     ("offset_pc", "offset (pc)", "{:.1f}"),
     ("offset_ly", "offset (ly)", "{:.0f}"),
+    ("curve_floor_arcsec", "curve floor (arcsec)", "{:.1e}"),
     ("mu", "\u03bc (signed)", "{:.2f}"),
     ("parity", "parity", "{:+d}"),
     ("fold_mu", "|\u03bc| fold law", "{:.2f}"),
@@ -126,4 +127,5 @@ def measurement_panel(results):
         "offset: distance to the nearest critical curve in the lens plane; \u03bc: signed "
         "magnification (negative: odd parity); fold law: |\u03bc| \u2248 A/d with the fold "
         "coefficient A at the nearest curve point; source offset: distance of the traced "
-        "position to the nearest caustic in the source plane.")
+        "position to the nearest caustic in the source plane; curve floor: how precisely the "
+        "model's stored maps (e.g. float32) fix that curve's position at all.")
