@@ -29,6 +29,14 @@ _EXPORTS = {
     "write_table": "export",
     "save_session": "export",
     "load_session": "export",
+    "Band": "photometry",
+    "BandImage": "photometry",
+    "band_image": "photometry",
+    "measure_filters": "photometry",
+    "Dust": "sed",
+    "fit_blackbody": "sed",
+    "planck_nu": "sed",
+    "knot_nature": "nature",
 }
 
 __all__ = sorted(_EXPORTS) + ["__version__"]
