@@ -280,7 +280,7 @@ def fit_blackbody(wavelength, flux, flux_err, z, *, dust=None):
     best = None
     weights = 1.0 / sigma**2
     for log_t in np.linspace(math.log10(TEMPERATURE_RANGE[0]) + 0.05,
-                             math.log10(TEMPERATURE_RANGE[1]) - 0.05, 241):
+                             math.log10(TEMPERATURE_RANGE[1]) - 0.05, 81):
         s = shape(log_t)
         denominator = np.sum(weights * s * s)
         if not denominator > 0:
