@@ -107,3 +107,16 @@ def test_missing_mu_columns_are_an_input_error(demo_nature):
     _, images, coord = demo_nature
     with pytest.raises(lv.LensviewInputError, match="candidate, model and mu"):
         lv.knot_nature(images, coord, Table(dict(candidate=[0])), demo.Z_SOURCE)
+
+
+def test_readme_example_of_several_filters_runs(capsys):
+    import re
+    from pathlib import Path
+
+    text = (Path(__file__).resolve().parents[1] / "README.md").read_text()
+    code = re.search(r"## Several filters: what is the knot\?\n.*?```python\n(.*?)```", text,
+                     re.S).group(1)
+    namespace = {}
+    exec(compile(code, "README.md", "exec"), namespace)
+    assert len(namespace["result"].summary) == len(namespace["knots"])
+    assert "verdict" in capsys.readouterr().out
