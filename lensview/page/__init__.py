@@ -80,7 +80,9 @@ def main():
         images_panel(state, results, [f.name for f in scene.fields])
     with source:
         source_panel(state, scene, z_source, viewport, settings)
-    with nature:
-        nature_panel(state, scene, z_source)
     with takeaway:
         takeaway_panel(state, scene, z_source, results, settings, viewport)
+    # Filled last: measuring every filter takes a moment, and the downloads above
+    # must not wait for it (or be clicked while still stale).
+    with nature:
+        nature_panel(state, scene, z_source)
