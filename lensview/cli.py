@@ -444,7 +444,7 @@ def build_parser():
                                       "radius of knots in several filters, with a verdict")
     _add_models(p)
     p.add_argument("--cutout", action="append", nargs="+", required=True,
-                   metavar="FILE [KEY=VALUE",
+                   metavar=("FILE", "KEY=VALUE"),
                    help="a cutout in one filter, optionally followed by name=, zp= (AB zero "
                         "point), pivot= (micron, or with a unit) and psf= (FWHM, arcsec) where "
                         "the header lacks them; repeat for each filter")

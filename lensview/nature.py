@@ -275,6 +275,11 @@ def knot_nature(images, coords, models, z_source, *, labels=None, radius=None, d
     if labels is None:
         labels = [f"K{k + 1}" for k in range(len(coords))]
     labels = [str(label) for label in labels]
+    if realisations is not None and not (isinstance(realisations, Table)
+                                         and {"candidate", "mu"} <= set(realisations.colnames)):
+        raise LensviewInputError(
+            "The realisations must be a table with the columns candidate (0-based knot index) "
+            "and mu, one row per realisation.")
     photometry = measure_filters(images, coords, radius=radius, labels=labels)
     colours = ab_colours(photometry)
     mu_rows = _mu_table(models, coords, z, cosmology, labels)

@@ -251,9 +251,12 @@ def fit_blackbody(wavelength, flux, flux_err, z, *, dust=None):
         With NaN values and a note when fewer than two filters are usable.
     """
     lam, f, e = _check_points(wavelength, flux, flux_err)
-    if not (isinstance(z, (int, float, np.floating)) and math.isfinite(z) and z >= 0):
+    try:
+        z = float(z)
+    except (TypeError, ValueError):
+        z = float("nan")
+    if not (math.isfinite(z) and z >= 0):
         raise LensviewInputError(f"The redshift must be a number >= 0; got {z!r}.")
-    z = float(z)
     if dust is not None and not isinstance(dust, Dust):
         raise LensviewInputError("dust must be a lensview.sed.Dust or None.")
     usable = np.isfinite(f.value) & np.isfinite(e.value) & (e.value > 0)

@@ -120,3 +120,11 @@ def test_readme_example_of_several_filters_runs(capsys):
     exec(compile(code, "README.md", "exec"), namespace)
     assert len(namespace["result"].summary) == len(namespace["knots"])
     assert "verdict" in capsys.readouterr().out
+
+
+def test_realisations_without_mu_are_an_input_error(demo_nature):
+    _, images, coord = demo_nature
+    table = Table(dict(candidate=[0], model=["one"], mu=[1000.0]))
+    with pytest.raises(lv.LensviewInputError, match="columns candidate"):
+        lv.knot_nature(images, coord, table, demo.Z_SOURCE,
+                       realisations=Table(dict(candidate=[0], magnification=[3.0])))

@@ -157,3 +157,13 @@ def test_too_few_filters_give_nan_with_a_reason():
     assert np.isnan(fit.temperature) and "at least two" in fit.note
     with pytest.raises(LensviewInputError, match="one value per filter"):
         fit_blackbody([1.0, 2.0] * u.um, [1.0] * u.uJy, [0.1] * u.uJy, 2.0)
+
+
+def test_a_filter_without_a_measurement_is_left_out_of_the_fit():
+    # A knot outside one filter has NaN there (lensview.photometry.measure_filters);
+    # the other three still fix the temperature of the noiseless model.
+    flux = blackbody_flux_density(DEMO_PIVOTS, 9000.0, 2e-23, 2.5)
+    flux[0] = np.nan * u.uJy
+    fit = fit_blackbody(DEMO_PIVOTS, flux, 0.05 * np.nan_to_num(flux, nan=1.0 * u.uJy), 2.5)
+    assert fit.temperature.to_value(u.K) == pytest.approx(9000.0, rel=0.01)
+    assert fit.dof == 1
