@@ -3,7 +3,6 @@
 import numpy as np
 import pytest
 import astropy.units as u
-import astropy.constants as const
 from astropy.coordinates import SkyCoord
 from astropy.table import Table
 

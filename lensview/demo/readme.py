@@ -17,7 +17,6 @@ def _radec(coord):
 
 def _compact_truth():
     """True temperature, luminosity and radius of the compact object C."""
-    from ..cosmology import angular_scale
     from ..sed import blackbody_flux_density, stefan_boltzmann_luminosity
     from astropy.cosmology import Planck18
 
@@ -86,7 +85,10 @@ def readme_text(fields, values, candidates, size_factor, seed):
                             for i, row in enumerate(values["source_images"]))
     lens_pc, source_pc = values["pc_per_arcsec_lens"], values["pc_per_arcsec_source"]
     c_offsets, c_mu = compact["curve_offsets"], compact["mu"]
+    from ..nature import MAX_STELLAR_MASS, eddington_luminosity
+
     filter_rows, compact_luminosity, compact_radius, compact_radius_pc = _filters_section(size_factor)
+    eddington = eddington_luminosity(MAX_STELLAR_MASS).to_value(u.L_sun)
     fold_offsets = ", ".join(f"{name} {values['curve_offsets_at_fold'][name]:.3f}\""
                              for name in MODEL_NAMES)
     return f"""# Demo scenario: the {CLUSTER_NAME} (invented data)
@@ -158,11 +160,14 @@ galaxies f_nu ~ lambda^{FIELD_SLOPE:g}. No dust.
 | --- | --- | --- | --- | --- | --- | --- | --- | --- |
 {filter_rows}
 
-**True nature of C**: unlensed, a {COMPACT_TEMPERATURE:.0f} K blackbody of intrinsic AB {KNOTS[0].mag} at
+**True nature of C**: unlensed, a blackbody of {COMPACT_TEMPERATURE:.0f} K and intrinsic AB {KNOTS[0].mag} at
 {REFERENCE_FILTER} has radius **{compact_radius:.0f} R_sun** ({compact_radius_pc:.3g} pc) and bolometric
 luminosity **{compact_luminosity:.3g} L_sun** (log L/L_sun = {np.log10(compact_luminosity):.2f}; nominal solar
-units of IAU 2015 Resolution B3, Planck18 distances). `lensview.demo.load_demo_filters()`
-returns the four cutouts as `BandImage`s.
+units of IAU 2015 Resolution B3, Planck18 distances). That is {compact_luminosity / eddington:.1f} times the
+Eddington luminosity of a {MAX_STELLAR_MASS.value:.0f} M_sun star and far smaller than a star cluster: the
+invented object is beyond what one steady star can be, and how clearly a measurement says so
+depends on the magnification each model gives it (`lensview.knot_nature`).
+`lensview.demo.load_demo_filters()` returns the four cutouts as `BandImage`s.
 
 ## Files
 
