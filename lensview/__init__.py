@@ -32,6 +32,8 @@ _EXPORTS = {
     "Band": "photometry",
     "BandImage": "photometry",
     "band_image": "photometry",
+    "band_from_header": "photometry",
+    "ab_colours": "photometry",
     "measure_filters": "photometry",
     "Dust": "sed",
     "fit_blackbody": "sed",

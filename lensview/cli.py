@@ -256,7 +256,7 @@ def cmd_figure(args):
     print(f"wrote {args.output}")
 
 
-_BAND_KEYS = ("name", "zp", "pivot", "psf")
+_BAND_KEYS = ("name", "zp", "pivot", "psf", "beta")
 
 
 def _band_options(spec):
@@ -280,6 +280,8 @@ def _band_options(spec):
             band["psf_fwhm"] = _quantity(options["psf"], u.arcsec)
         if "pivot" in options:
             band["pivot"] = _quantity(options["pivot"], u.um)
+        if "beta" in options:
+            band["psf_beta"] = float(options["beta"])
     except (TypeError, ValueError) as error:
         raise LensviewInputError(
             f"--cutout {path}: could not read {options} ({error}); numbers are micron for pivot, "
@@ -446,8 +448,9 @@ def build_parser():
     p.add_argument("--cutout", action="append", nargs="+", required=True,
                    metavar=("FILE", "KEY=VALUE"),
                    help="a cutout in one filter, optionally followed by name=, zp= (AB zero "
-                        "point), pivot= (micron, or with a unit) and psf= (FWHM, arcsec) where "
-                        "the header lacks them; repeat for each filter")
+                        "point), pivot= (micron, or with a unit), psf= (FWHM, arcsec) and beta= "
+                        "(Moffat index of the PSF) where the header lacks them; repeat for each "
+                        "filter")
     p.add_argument("--candidates", required=True, help="CSV/ECSV/VOTable of the knots")
     p.add_argument("--aperture", type=float, default=None, metavar="ARCSEC",
                    help="aperture radius (default 1.5 times the widest PSF FWHM)")

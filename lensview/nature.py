@@ -70,6 +70,9 @@ CAUTIONS = (
     "published values recalled from the literature, not hard walls.",
     "Microlensing by stars in the cluster can raise a knot near the curve far above its "
     "smooth-model magnification for a while.",
+    "Light of the arc around a knot falls into the aperture too (a local annulus on a thin "
+    "arc does not remove it), and the point-source aperture correction assumes an "
+    "unresolved knot.",
 )
 
 

@@ -59,7 +59,7 @@ def test_per_filter_options_override_the_header(two_knots, tmp_path):
     path, _ = two_knots
     out = tmp_path / "n.ecsv"
     cutouts = _cutouts()
-    cutouts[3:4] = [cutouts[3], "zp=28.5", "name=mine", "pivot=15000Angstrom", "psf=0.1"]
+    cutouts[3:4] = [cutouts[3], "zp=28.5", "name=mine", "pivot=15000Angstrom", "psf=0.1", "beta=3"]
     assert main(["nature", *_models(), *cutouts, "--candidates", str(path), "-o", str(out)]) == 0
     filters = Table.read(tmp_path / "n_filters.ecsv")
     assert "mine" in set(filters["band"])

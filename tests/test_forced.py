@@ -169,3 +169,28 @@ def test_repeated_filter_names_and_unknown_psf_are_input_errors():
     nopsf = ph.BandImage(one.data, one.wcs, ph.Band("nopsf", 1 * u.um, 27.0))
     with pytest.raises(LensviewInputError, match="PSF FWHM of nopsf is unknown"):
         ph.measure_filters([nopsf], coords)
+
+
+@pytest.mark.parametrize("beta", [None, 2.5, 4.0])
+def test_point_source_correction_matches_numerical_integration(beta):
+    # Enclosed light of a Gaussian or Moffat PSF (Moffat 1969, A&A 3, 455) integrated
+    # numerically over the plane (scipy.integrate.quad), with the annulus mean taken off.
+    from scipy.integrate import quad
+
+    band = ph.Band("b", 1 * u.um, 27.0, psf_fwhm=0.12 * u.arcsec, psf_beta=beta)
+    fwhm = 0.12
+    if beta is None:
+        sigma = fwhm / 2.354820045
+        profile = lambda r: np.exp(-0.5 * (r / sigma) ** 2)  # noqa: E731
+    else:
+        a = fwhm / (2 * np.sqrt(2 ** (1 / beta) - 1))
+        profile = lambda r: (1 + (r / a) ** 2) ** (-beta)  # noqa: E731
+
+    def light(r0, r1):
+        return quad(lambda r: 2 * np.pi * r * profile(r), r0, r1, limit=200)[0]
+
+    whole = light(0, np.inf)
+    r, r_in, r_out = 0.15, 0.3, 0.45
+    kept = (light(0, r) - np.pi * r**2 * light(r_in, r_out) / (np.pi * (r_out**2 - r_in**2))) / whole
+    assert ph.point_source_correction(band, r, (r_in, r_out)) == pytest.approx(1 / kept,
+                                                                                      rel=1e-6)

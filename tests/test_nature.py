@@ -67,7 +67,10 @@ def test_demo_compact_knot_temperature_is_recovered(demo_nature):
     result, _, _ = demo_nature
     row = result.summary[0]
     # The demo's invented truth (sample_images/README.md): a blackbody of COMPACT_TEMPERATURE.
-    assert row["temperature"] == pytest.approx(demo.COMPACT_TEMPERATURE, rel=0.03)
+    # The arc's own light under the aperture (10-30 % of C's flux, more in the bluest
+    # filter) is not removed by a local annulus on a thin arc, so the fit is a few per
+    # cent off.
+    assert row["temperature"] == pytest.approx(demo.COMPACT_TEMPERATURE, rel=0.05)
     assert row["n_filters"] == len(demo.FILTERS)
     assert len(result.per_model) == 2 * len(demo.MODEL_NAMES)
     assert row["luminosity_min"] < row["luminosity_max"]
@@ -83,10 +86,10 @@ def test_demo_compact_knot_luminosity_with_its_true_magnification(demo_nature):
     table = Table(dict(candidate=[0], model=["truth"], mu=[mu_true], lambda_t=[np.nan]))
     result = lv.knot_nature(images, coord, table, demo.Z_SOURCE, labels=["C"])
     luminosity, radius, _ = _compact_truth()
-    # Aperture colours with PSFs of different widths bias the temperature by ~1 %
-    # and so L ~ T^4 by a few per cent; 15 % leaves room for the arc's background.
-    assert result.per_model["luminosity"][0] == pytest.approx(luminosity, rel=0.15)
-    assert result.per_model["radius"][0] == pytest.approx(radius, rel=0.1)
+    # The arc's light under the aperture adds 10-30 % to C's fluxes (see above), which
+    # the luminosity and the radius inherit.
+    assert result.per_model["luminosity"][0] == pytest.approx(luminosity, rel=0.2)
+    assert result.per_model["radius"][0] == pytest.approx(radius, rel=0.15)
 
 
 def test_realisations_widen_the_luminosity_range(demo_nature):
@@ -127,3 +130,63 @@ def test_realisations_without_mu_are_an_input_error(demo_nature):
     with pytest.raises(lv.LensviewInputError, match="columns candidate"):
         lv.knot_nature(images, coord, table, demo.Z_SOURCE,
                        realisations=Table(dict(candidate=[0], magnification=[3.0])))
+
+
+def _moffat_stamp(shape, x0, y0, fwhm_pix, beta, total, oversample=5):
+    """A Moffat profile (Moffat 1969, A&A 3, 455) integrated over pixels by supersampling."""
+    alpha = fwhm_pix / (2 * np.sqrt(2 ** (1 / beta) - 1))
+    ny, nx = shape
+    sub = (np.arange(nx * oversample) + 0.5) / oversample - 0.5
+    suby = (np.arange(ny * oversample) + 0.5) / oversample - 0.5
+    xx, yy = np.meshgrid(sub, suby)
+    profile = (1 + ((xx - x0) ** 2 + (yy - y0) ** 2) / alpha**2) ** (-beta)
+    binned = profile.reshape(ny, oversample, nx, oversample).sum(axis=(1, 3))
+    # Normalised to the profile's total over the whole plane, pi alpha^2 / (beta - 1).
+    return total * binned / oversample**2 / (np.pi * alpha**2 / (beta - 1))
+
+
+def test_synthetic_knots_in_the_demo_filters_give_back_their_temperature():
+    # Knots of known temperature at z = 1-6 put into images with the demo filters'
+    # own WCS, Moffat PSF, zero point and sky noise (headers of sample_images), at
+    # five places each (independent noise): the quoted 1-sigma uncertainty must hold
+    # the true temperature in at least 68 % of the 30 measurements (Gaussian coverage).
+    from astropy.io import fits
+
+    from lensview.photometry import Band, BandImage, measure_filters
+    from lensview.sed import blackbody_flux_density, fit_blackbody
+
+    headers = [fits.getheader(demo.DEMO_DIRECTORY / f.file) for f in demo.FILTERS]
+    filters = demo.load_demo_filters()
+    rng = np.random.default_rng(42)
+    centre = filters[1].wcs.pixel_to_world(299.5, 299.5)
+    offsets = [(-6, -6), (6, -6), (-6, 6), (6, 6), (0, 0)]
+    cases = [(1.0, 5000.0), (2.0, 8000.0), (3.0, 12000.0), (4.0, 10000.0), (5.0, 15000.0),
+             (6.0, 20000.0)]
+    hits = total = 0
+    for z, temperature in cases:
+        # Normalised to 0.5 microjansky at the reference filter (S/N of tens).
+        scale = 0.5 / blackbody_flux_density(1.5 * u.um, temperature, 1.0, z).value
+        fluxes = blackbody_flux_density(np.array([f.pivot_um for f in demo.FILTERS]) * u.um,
+                                        temperature, scale, z).to_value(u.uJy)
+        for east, north in offsets:
+            knot = centre.spherical_offsets_by(east * u.arcsec, north * u.arcsec)
+            images = []
+            for image, header, fnu in zip(filters, headers, fluxes):
+                shape = image.data.shape
+                x, y = (float(v) for v in image.wcs.world_to_pixel(knot))
+                pixel = image.wcs.proj_plane_pixel_scales()[0].to_value(u.arcsec)
+                counts = fnu / image.band.unit_flux_density().to_value(u.uJy)
+                box = 40
+                data = rng.normal(0.0, header["SKYSIGMA"], shape)
+                ix, iy = int(round(x)), int(round(y))
+                stamp = _moffat_stamp((2 * box + 1, 2 * box + 1), x - ix + box, y - iy + box,
+                                      header["PSF_FWHM"] / pixel, header["PSF_BETA"], counts)
+                data[iy - box:iy + box + 1, ix - box:ix + box + 1] += stamp
+                images.append(BandImage(data, image.wcs, image.band))
+            phot = measure_filters(images, knot, radius=0.5 * u.arcsec)
+            fit = fit_blackbody(phot["pivot"].quantity, phot["flux"].quantity,
+                                phot["flux_err"].quantity, z)
+            total += 1
+            hits += abs(fit.temperature.to_value(u.K) - temperature) <= fit.temperature_err.to_value(u.K)
+    print(f"coverage {hits}/{total}")
+    assert hits / total >= 0.68

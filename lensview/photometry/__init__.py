@@ -17,7 +17,7 @@ from .bands import Band, BandImage, band_from_header, band_image
 from .centroid import CentroidSnap, snap_to_centroid
 from .delensing import delensed_properties
 from .detection import ArcBand, detect_point_sources
-from .forced import ab_colours, measure_filters, require_common_footprint
+from .forced import ab_colours, measure_filters, point_source_correction, require_common_footprint
 from .magnitudes import AB_ZERO_FLUX_DENSITY, ab_magnitude, ab_magnitude_from_fnu, zero_point
 from .sizes import RESOLVED_FWHM_FACTOR, SizeEstimate, measure_size
 
@@ -39,6 +39,7 @@ __all__ = [
     "detect_point_sources",
     "measure_filters",
     "measure_size",
+    "point_source_correction",
     "require_common_footprint",
     "snap_to_centroid",
     "zero_point",

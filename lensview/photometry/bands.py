@@ -7,7 +7,8 @@ user (the user's value always wins):
 * name: ``FILTER`` (else ``FILTER1``/``FILTER2`` that are not a clear position);
 * pivot wavelength: ``PHOTPLAM`` (Angstrom, the pivot wavelength of a
   flux-density calibration), else ``PIVOT_UM`` (micron, a keyword of our own);
-* PSF FWHM: ``PSF_FWHM`` (arcsec, a keyword of our own);
+* PSF FWHM: ``PSF_FWHM`` (arcsec, a keyword of our own), and the PSF's
+  Moffat index ``PSF_BETA`` (our own; without it the PSF is taken as Gaussian);
 * AB zero point: `lensview.photometry.zero_point` (``PHOTZP``, ``MAGZERO``,
   ``MAGZP``, ``ZP``, ``ZEROPNT``; ``PHOTFLAM`` with ``PHOTPLAM``; a flux-density
   ``BUNIT``).
@@ -25,12 +26,14 @@ from .frame import cutout_image, cutout_wcs
 from .magnitudes import AB_ZERO_FLUX_DENSITY, zero_point as _zero_point, zero_point_value
 
 __all__ = ["Band", "BandImage", "band_from_header", "band_image", "PIVOT_KEYWORDS",
-           "PSF_KEYWORD", "NAME_KEYWORDS"]
+           "PSF_KEYWORD", "PSF_BETA_KEYWORD", "NAME_KEYWORDS"]
 
 #: Header keywords holding the pivot wavelength and the unit each is in.
 PIVOT_KEYWORDS = (("PHOTPLAM", u.AA), ("PIVOT_UM", u.um))
 #: Header keyword (our own) holding the PSF FWHM in arcsec.
 PSF_KEYWORD = "PSF_FWHM"
+#: Header keyword (our own) holding the Moffat index of the PSF.
+PSF_BETA_KEYWORD = "PSF_BETA"
 #: Header keywords holding the filter name, in order of preference.
 NAME_KEYWORDS = ("FILTER", "FILTER1", "FILTER2")
 _EMPTY_FILTER_WORDS = {"", "CLEAR", "CLEAR1L", "CLEAR2L", "CLEAR1S", "CLEAR2S", "OPEN", "N/A", "NONE"}
@@ -53,6 +56,8 @@ class Band:
         FWHM of the PSF (angle); None when unknown.
     zero_point_source : str
         Where the zero point came from (a keyword or "user").
+    psf_beta : float or None
+        Moffat index of the PSF (Moffat 1969, A&A 3, 455); None for a Gaussian PSF.
     """
 
     name: str
@@ -60,6 +65,7 @@ class Band:
     zero_point: float | None = None
     psf_fwhm: u.Quantity | None = None
     zero_point_source: str = ""
+    psf_beta: float | None = None
 
     def __post_init__(self):
         if not isinstance(self.name, str) or not self.name.strip():
@@ -79,6 +85,29 @@ class Band:
                 raise LensviewInputError(
                     f"The PSF FWHM of band {self.name!r} must be a positive angle, e.g. "
                     f"0.1 * u.arcsec; got {psf!r}.")
+
+        if self.psf_beta is not None and not (math.isfinite(float(self.psf_beta))
+                                              and float(self.psf_beta) > 1):
+            raise LensviewInputError(
+                f"The Moffat index of band {self.name!r} must be a number above 1; got "
+                f"{self.psf_beta!r}.")
+
+    def enclosed_fraction(self, radius):
+        """Fraction of a point source's light within ``radius`` (arcsec) of its centre.
+
+        Gaussian PSF: ``1 - 2**(-4 (r / FWHM)**2)``; Moffat PSF of index beta:
+        ``1 - (1 + r**2 / a**2)**(1 - beta)`` with ``a = FWHM / (2 sqrt(2**(1/beta) - 1))``
+        (Moffat 1969, A&A 3, 455). NaN without a PSF FWHM.
+        """
+        r = np.asarray(radius, dtype=float)
+        if self.psf_fwhm is None:
+            return np.full(r.shape, np.nan)
+        fwhm = self.psf_fwhm.to_value(u.arcsec)
+        if self.psf_beta is None:
+            return 1.0 - 2.0 ** (-4.0 * (r / fwhm) ** 2)
+        beta = float(self.psf_beta)
+        a = fwhm / (2.0 * math.sqrt(2.0 ** (1.0 / beta) - 1.0))
+        return 1.0 - (1.0 + (r / a) ** 2) ** (1.0 - beta)
 
     @property
     def frequency(self):
@@ -132,10 +161,14 @@ def _header_pivot(header):
 
 def _header_psf(header):
     value = header.get(PSF_KEYWORD)
-    if isinstance(value, (int, float, np.number)) and not isinstance(value, bool):
-        if math.isfinite(float(value)) and float(value) > 0:
-            return float(value) * u.arcsec
+    if _positive_number(value):
+        return float(value) * u.arcsec
     return None
+
+
+def _header_beta(header):
+    value = header.get(PSF_BETA_KEYWORD)
+    return float(value) if _positive_number(value) and float(value) > 1 else None
 
 
 def _header_zero_point_source(header):
@@ -154,7 +187,7 @@ def _positive_number(value, allow_any_sign=False):
 
 
 def band_from_header(header, *, name=None, pivot=None, zero_point=None, psf_fwhm=None,
-                     what="the cutout"):
+                     psf_beta=None, what="the cutout"):
     """The `Band` a FITS header declares, with the user's values taking precedence.
 
     Parameters
@@ -171,6 +204,8 @@ def band_from_header(header, *, name=None, pivot=None, zero_point=None, psf_fwhm
         zero point is allowed here and reported by `Band.require_zero_point`.
     psf_fwhm : `~astropy.units.Quantity`, optional
         PSF FWHM; default ``PSF_FWHM`` (arcsec).
+    psf_beta : float, optional
+        Moffat index of the PSF; default ``PSF_BETA`` (a header without it: Gaussian).
     what : str
         How to call the cutout in messages (e.g. its file name).
 
@@ -208,11 +243,13 @@ def band_from_header(header, *, name=None, pivot=None, zero_point=None, psf_fwhm
         psf_fwhm = _header_psf(header)
     elif not isinstance(psf_fwhm, u.Quantity):
         psf_fwhm = float(psf_fwhm) * u.arcsec
+    if psf_beta is None:
+        psf_beta = _header_beta(header)
     return Band(name=str(name), pivot=pivot.to(u.um), zero_point=zero_point, psf_fwhm=psf_fwhm,
-                zero_point_source=source)
+                zero_point_source=source, psf_beta=psf_beta)
 
 
-def band_image(cutout, *, name=None, pivot=None, zero_point=None, psf_fwhm=None):
+def band_image(cutout, *, name=None, pivot=None, zero_point=None, psf_fwhm=None, psf_beta=None):
     """A `BandImage` from a cutout read with `lensview.read_cutout`.
 
     The band is read from the image header, then from the primary header
@@ -223,7 +260,7 @@ def band_image(cutout, *, name=None, pivot=None, zero_point=None, psf_fwhm=None)
     ----------
     cutout : `~lensview.fitsio.Cutout`
         A cutout (``data``, ``wcs``, ``header``, ``zero_point``, ``path``).
-    name, pivot, zero_point, psf_fwhm
+    name, pivot, zero_point, psf_fwhm, psf_beta
         As in `band_from_header`.
 
     Returns
@@ -232,7 +269,7 @@ def band_image(cutout, *, name=None, pivot=None, zero_point=None, psf_fwhm=None)
     """
     what = cutout.path or "the uploaded cutout"
     band = band_from_header(cutout.header, name=name, pivot=pivot, zero_point=zero_point,
-                            psf_fwhm=psf_fwhm, what=what)
+                            psf_fwhm=psf_fwhm, psf_beta=psf_beta, what=what)
     if band.zero_point is None and getattr(cutout, "zero_point", None) is not None:
         band = replace(band, zero_point=float(cutout.zero_point), zero_point_source="primary header")
     return BandImage(np.asarray(cutout.data, dtype=float), cutout.wcs, band)

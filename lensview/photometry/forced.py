@@ -18,7 +18,7 @@ from .aperture import aperture_photometry
 from .bands import BandImage
 from .frame import inside_image, pixels_of
 
-__all__ = ["measure_filters", "ab_colours", "require_common_footprint",
+__all__ = ["measure_filters", "ab_colours", "require_common_footprint", "point_source_correction",
            "DEFAULT_RADIUS_PER_FWHM"]
 
 #: Default aperture radius, in units of the widest PSF FWHM of the set (common practice:
@@ -97,7 +97,23 @@ def _default_radius(images):
     return DEFAULT_RADIUS_PER_FWHM * max(w.to_value(u.arcsec) for w in widths) * u.arcsec
 
 
-def measure_filters(images, coords, *, radius=None, annulus=None, labels=None):
+def point_source_correction(band, radius, annulus):
+    """Factor from an aperture flux to the total flux of a point source.
+
+    The aperture holds the enclosed fraction F(r) of the PSF
+    (`Band.enclosed_fraction`), and the annulus background, its mean wing
+    light, takes ``r^2 (F(r_out) - F(r_in)) / (r_out^2 - r_in^2)`` of it away
+    again (common practice for aperture corrections). NaN without a PSF FWHM.
+    """
+    r, r_in, r_out = radius, annulus[0], annulus[1]
+    inside = band.enclosed_fraction(r)
+    wing = band.enclosed_fraction(r_out) - band.enclosed_fraction(r_in)
+    kept = inside - r**2 * wing / (r_out**2 - r_in**2)
+    return float(1.0 / kept) if kept > 0 else float("nan")
+
+
+def measure_filters(images, coords, *, radius=None, annulus=None, labels=None,
+                    point_source=True):
     """Forced aperture photometry of knots in every filter at the same sky positions.
 
     Parameters
@@ -114,6 +130,12 @@ def measure_filters(images, coords, *, radius=None, annulus=None, labels=None):
         Background annulus; default 2 and 3 times the radius.
     labels : sequence of str, optional
         Names of the knots.
+    point_source : bool
+        Correct each filter's aperture fluxes to the total flux of a point
+        source (`point_source_correction`, from the band's PSF FWHM and
+        Moffat index), so that colours do not depend on the PSF widths.
+        Filters without a PSF FWHM are left uncorrected. For resolved knots
+        the correction is too small; use a larger radius.
 
     Returns
     -------
@@ -122,7 +144,8 @@ def measure_filters(images, coords, *, radius=None, annulus=None, labels=None):
         filters in the order of ``images``: ``candidate`` (0-based),
         ``label`` (if given), ``band``, ``pivot`` (micron), ``ra``, ``dec``
         (deg), ``x``, ``y`` (pixels of that filter), ``flux`` and
-        ``flux_err`` (f_nu, microjansky), ``snr``, ``mag_ab``, ``mag_ab_err``
+        ``flux_err`` (f_nu, microjansky), ``snr``, ``mag_ab``, ``mag_ab_err``,
+        ``aperture_correction`` (the factor applied, 1 for none)
         and ``note`` (why a value is NaN, e.g. outside one filter's
         cutout; empty otherwise). ``meta`` holds the radius and the bands.
 
@@ -145,16 +168,20 @@ def measure_filters(images, coords, *, radius=None, annulus=None, labels=None):
     if annulus is None:
         annulus = (2 * r_arcsec * u.arcsec, 3 * r_arcsec * u.arcsec)
 
+    ring = tuple(angle_arcsec(a, "annulus") for a in annulus)
     per_band = []
     for image in images:
         table = aperture_photometry(image.data, image.wcs, coords, r_arcsec * u.arcsec,
                                     annulus=annulus, zero_point=image.band.zero_point)
-        unit_fnu = image.band.unit_flux_density().to_value(u.uJy)
-        per_band.append((image.band, table, unit_fnu))
+        correction = 1.0
+        if point_source and image.band.psf_fwhm is not None:
+            correction = point_source_correction(image.band, r_arcsec, ring)
+        unit_fnu = image.band.unit_flux_density().to_value(u.uJy) * correction
+        per_band.append((image.band, table, unit_fnu, correction))
 
     rows = []
     for k in range(len(coords)):
-        for band, table, unit_fnu in per_band:
+        for band, table, unit_fnu, correction in per_band:
             row = table[k]
             note = str(row["note"])
             if note:
@@ -162,10 +189,12 @@ def measure_filters(images, coords, *, radius=None, annulus=None, labels=None):
             rows.append((k, band.name, band.pivot.to_value(u.um), float(row["ra"]),
                          float(row["dec"]), float(row["x"]), float(row["y"]),
                          float(row["flux"]) * unit_fnu, float(row["flux_err"]) * unit_fnu,
-                         float(row["mag_ab"]), float(row["mag_ab_err"]), note))
+                         float(row["mag_ab"]) - 2.5 * np.log10(correction),
+                         float(row["mag_ab_err"]), correction, note))
     names = ("candidate", "band", "pivot", "ra", "dec", "x", "y", "flux", "flux_err", "mag_ab",
-             "mag_ab_err", "note")
-    dtypes = (np.int64, str, float, float, float, float, float, float, float, float, float, str)
+             "mag_ab_err", "aperture_correction", "note")
+    dtypes = (np.int64, str, float, float, float, float, float, float, float, float, float, float,
+              str)
     out = Table(rows=rows, names=names, dtype=dtypes) if rows else Table(names=names, dtype=dtypes)
     with np.errstate(divide="ignore", invalid="ignore"):
         snr = np.asarray(out["flux"], float) / np.asarray(out["flux_err"], float)
@@ -177,10 +206,10 @@ def measure_filters(images, coords, *, radius=None, annulus=None, labels=None):
                        ("mag_ab_err", u.mag)):
         out[name].unit = unit
     out.meta["radius_arcsec"] = r_arcsec
-    out.meta["annulus_arcsec"] = [angle_arcsec(a, "annulus") for a in annulus]
-    out.meta["bands"] = [band.name for band, _, _ in per_band]
-    out.meta["pivot_um"] = [band.pivot.to_value(u.um) for band, _, _ in per_band]
-    out.meta["zero_points"] = [band.zero_point for band, _, _ in per_band]
+    out.meta["annulus_arcsec"] = list(ring)
+    out.meta["bands"] = [band.name for band, _, _, _ in per_band]
+    out.meta["pivot_um"] = [band.pivot.to_value(u.um) for band, _, _, _ in per_band]
+    out.meta["zero_points"] = [band.zero_point for band, _, _, _ in per_band]
     return out
 
 
