@@ -65,6 +65,10 @@ def render_knot_figure(result, candidate, *, figsize=(8.4, 3.4)):
                     label=f"blackbody {row['temperature']:.0f} ± {row['temperature_err']:.0f} K")
     sed_ax.set_xscale("log")
     sed_ax.set_yscale("log")
+    shown = flux[detected]
+    if shown.size:
+        # Keep the measured points readable where the curve plunges on the Wien side.
+        sed_ax.set_ylim(shown.min() / 10, shown.max() * 4)
     sed_ax.set_xlabel("observed wavelength (micron)")
     sed_ax.set_ylabel("f_nu (microjansky)")
     z = fit.z
@@ -102,6 +106,9 @@ def render_knot_figure(result, candidate, *, figsize=(8.4, 3.4)):
                 va="top", ha="right", color="#5A5A5A")
     lum_ax.text(COOL_STAR_LUMINOSITY.to_value(u.L_sun), len(names) - 0.4, " cool-star limit",
                 fontsize=6, rotation=90, va="top", ha="right", color="#5A5A5A")
+    lum_ax.text(FEW_STARS * float(row["single_star_limit"]), len(names) - 0.4,
+                f" {FEW_STARS} such stars", fontsize=6, rotation=90, va="top", ha="right",
+                color="#5A5A5A")
     lum_ax.set_xscale("log")
     lum_ax.set_yticks(ypos, names if len(names) <= 12 else [""] * len(names), fontsize=7)
     lum_ax.set_ylim(-0.7, len(names) - 0.3)

@@ -30,6 +30,7 @@ import astropy.units as u
 import astropy.constants as const
 from astropy.table import Table
 from scipy.optimize import curve_fit
+from scipy.stats import chi2 as chi2_distribution
 
 from .errors import LensviewInputError
 
@@ -42,6 +43,8 @@ __all__ = ["planck_nu", "Dust", "DUST_LAWS", "BlackbodyFit", "blackbody_flux_den
 DUST_LAWS = ("G23", "F99", "CCM89")
 #: Temperatures the fit may reach (K); outside it a blackbody is no description of a knot.
 TEMPERATURE_RANGE = (1.0e3, 1.0e6)
+#: Below this chi-square probability a fit is flagged as poor (common practice: 0.1 %).
+POOR_FIT_PROBABILITY = 1e-3
 _B_NU_UNIT = u.W / u.m**2 / u.Hz / u.sr
 _H_OVER_K = (const.h / const.k_B).to_value(u.s * u.K)
 _TWO_H_OVER_C2 = (2 * const.h / const.c**2).to_value(u.J * u.s**3 / u.m**2)
@@ -311,6 +314,9 @@ def fit_blackbody(wavelength, flux, flux_err, z, *, dust=None):
         note = "the temperature is not constrained by these filters"
     elif abs(params[0] - bounds[0][0]) < 1e-3 or abs(params[0] - bounds[1][0]) < 1e-3:
         note = "the temperature ran to the edge of the allowed range"
+    elif dof > 0 and chi2_distribution.sf(chi2, dof) < POOR_FIT_PROBABILITY:
+        note = (f"a blackbody describes these fluxes poorly (chi2 = {chi2:.3g} for {dof} degrees "
+                "of freedom); the temperature is only indicative")
     return BlackbodyFit(
         temperature=temperature * u.K,
         temperature_err=temperature * math.sqrt(max(log_covariance[0, 0], 0.0)) * u.K,

@@ -167,3 +167,12 @@ def test_a_filter_without_a_measurement_is_left_out_of_the_fit():
     fit = fit_blackbody(DEMO_PIVOTS, flux, 0.05 * np.nan_to_num(flux, nan=1.0 * u.uJy), 2.5)
     assert fit.temperature.to_value(u.K) == pytest.approx(9000.0, rel=0.01)
     assert fit.dof == 1
+
+
+def test_fluxes_no_blackbody_can_match_are_flagged():
+    # A flat f_nu over a factor four in wavelength is no blackbody at any temperature
+    # (Planck law); the fit says so instead of quietly reporting a temperature.
+    flux = np.full(4, 2.0) * u.uJy
+    fit = fit_blackbody(DEMO_PIVOTS, flux, 0.01 * flux, 2.9)
+    assert "describes these fluxes poorly" in fit.note
+    assert fit.scale_factor > 1
