@@ -36,6 +36,16 @@ _EXPORTS = {
     "load_session": "io",
     "read_table": "io",
     "vertex_table": "io",
+    "Band": "photometry",
+    "BandImage": "photometry",
+    "band_image": "photometry",
+    "band_from_header": "photometry",
+    "ab_colours": "photometry",
+    "measure_filters": "photometry",
+    "Dust": "sed",
+    "fit_blackbody": "sed",
+    "planck_nu": "sed",
+    "knot_nature": "nature",
 }
 
 __all__ = sorted(_EXPORTS) + ["__version__"]

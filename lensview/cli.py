@@ -8,6 +8,7 @@ and exit status 2, never a traceback):
 ``lensview images``   predicted counter-images of one position
 ``lensview pair``     mirrored pairs among marked candidates
 ``lensview figure``   publication figure of the cutout with overlays
+``lensview nature``   colours, temperature, delensed luminosity and a verdict per knot
 ``lensview session``  check a saved session against its input files
 ``lensview posterior`` knots across many realisations of one model (percentiles)
 ``lensview demo``     regenerate the invented demo scenario
@@ -300,6 +301,102 @@ def cmd_figure(args):
     print(f"wrote {args.output}")
 
 
+_BAND_KEYS = ("name", "zp", "pivot", "psf", "beta")
+
+
+def _band_options(spec):
+    """Path and band options of one ``--cutout PATH [KEY=VALUE ...]``."""
+    path, options = spec[0], {}
+    for item in spec[1:]:
+        key, sep, value = item.partition("=")
+        key = key.strip().lower()
+        if not sep or key not in _BAND_KEYS or not value.strip():
+            raise LensviewInputError(
+                f"--cutout {path}: {item!r} is not an option of a filter; give KEY=VALUE with KEY "
+                f"one of {', '.join(_BAND_KEYS)} (e.g. zp=28.1 pivot=1.5um psf=0.1).")
+        options[key] = value.strip()
+    band = {}
+    if "name" in options:
+        band["name"] = options["name"]
+    try:
+        if "zp" in options:
+            band["zero_point"] = float(options["zp"])
+        if "psf" in options:
+            band["psf_fwhm"] = _quantity(options["psf"], u.arcsec)
+        if "pivot" in options:
+            band["pivot"] = _quantity(options["pivot"], u.um)
+        if "beta" in options:
+            band["psf_beta"] = float(options["beta"])
+    except (TypeError, ValueError) as error:
+        raise LensviewInputError(
+            f"--cutout {path}: could not read {options} ({error}); numbers are micron for pivot, "
+            "arcsec for psf and AB magnitudes for zp, or give a unit (pivot=15000Angstrom).") from None
+    for key, unit in (("pivot", u.um), ("psf_fwhm", u.arcsec)):
+        if key in band and not band[key].unit.is_equivalent(unit):
+            raise LensviewInputError(f"--cutout {path}: {key} must be in units of {unit}; got {band[key]}.")
+    return path, band
+
+
+def _quantity(text, unit):
+    """A number in ``unit``, or a number with its own unit (e.g. ``15000Angstrom``)."""
+    try:
+        return float(text) * unit
+    except ValueError:
+        return u.Quantity(text)
+
+
+def cmd_nature(args):
+    from .io import write_table
+    from .io.fits import read_cutout
+    from .nature import CAUTIONS, knot_nature
+    from .photometry import band_image
+    from .sed import Dust
+
+    images = []
+    for spec in args.cutout:
+        path, band = _band_options(spec)
+        _progress(f"reading {path}")
+        images.append(band_image(read_cutout(path), **band))
+    coords, labels, _ = _candidates(args.candidates, images[0].wcs)
+    fields = load_models(args)
+    dust = None
+    if args.av is not None:
+        if not (np.isfinite(args.av) and args.av >= 0):
+            raise LensviewInputError(f"--av {args.av} must be a non-negative V-band extinction (mag).")
+        dust = Dust(a_v=float(args.av), law=args.dust)
+    realisations = None
+    if args.realisations:
+        from astropy.table import Table
+
+        realisations = Table.read(args.realisations)
+    if args.aperture is not None and not args.aperture > 0:
+        raise LensviewInputError(f"--aperture {args.aperture} must be a positive radius in arcsec.")
+    radius = None if args.aperture is None else args.aperture * u.arcsec
+    _progress(f"{len(coords)} knot(s) in {len(images)} filter(s) against {len(fields)} model(s)")
+    result = knot_nature(images, coords, fields, args.z_source, labels=labels, radius=radius,
+                         dust=dust, realisations=realisations, cosmology=_cosmology(args))
+    cosmology = _cosmology(args) or fields[0].cosmology
+    write_table(result.summary, args.output, cosmology=cosmology)
+    print(f"wrote {len(result.summary)} knot(s) to {args.output}")
+    for suffix, table in (("_models", result.per_model), ("_filters", result.photometry)):
+        path = _sibling(args.output, suffix)
+        write_table(table, path, cosmology=cosmology)
+        print(f"wrote {path}")
+    for row in result.summary:
+        print(f"{row['label']}: {row['verdict']}")
+    if args.figures:
+        from .figures import save_figure
+        from .figures_sed import render_knot_figures
+
+        folder = Path(args.figures)
+        folder.mkdir(parents=True, exist_ok=True)
+        for label, fig in render_knot_figures(result):
+            safe = "".join(ch if ch.isalnum() or ch in "-_" else "_" for ch in label)
+            save_figure(fig, folder / f"knot_{safe}.png", dpi=150)
+        print(f"wrote {len(result.summary)} figure(s) to {folder}")
+    print("caution: " + " ".join(CAUTIONS), file=sys.stderr)
+
+
 def cmd_session(args):
     from .io import check_session_files, load_session
 
@@ -462,6 +559,29 @@ def build_parser():
                         "cannot place critical curves")
     p.add_argument("-o", "--output", required=True, help="output .png or .pdf")
     p.set_defaults(run=cmd_figure)
+
+    p = sub.add_parser("nature", help="colours, blackbody temperature, delensed luminosity and "
+                                      "radius of knots in several filters, with a verdict")
+    _add_models(p)
+    p.add_argument("--cutout", action="append", nargs="+", required=True,
+                   metavar=("FILE", "KEY=VALUE"),
+                   help="a cutout in one filter, optionally followed by name=, zp= (AB zero "
+                        "point), pivot= (micron, or with a unit), psf= (FWHM, arcsec) and beta= "
+                        "(Moffat index of the PSF) where the header lacks them; repeat for each "
+                        "filter")
+    p.add_argument("--candidates", required=True, help="CSV/ECSV/VOTable of the knots")
+    p.add_argument("--aperture", type=float, default=None, metavar="ARCSEC",
+                   help="aperture radius (default 1.5 times the widest PSF FWHM)")
+    p.add_argument("--dust", default="G23", choices=["G23", "F99", "CCM89"],
+                   help="extinction law in the knot's rest frame (with --av)")
+    p.add_argument("--av", type=float, default=None, metavar="MAG",
+                   help="V-band extinction in the knot's rest frame (default: no dust)")
+    p.add_argument("--realisations", default=None, metavar="TABLE",
+                   help="table with candidate and mu columns, one row per model realisation")
+    p.add_argument("--figures", default=None, metavar="DIR", help="write one PNG per knot here")
+    p.add_argument("-o", "--output", required=True,
+                   help="output .ecsv, .csv or .vot (also NAME_models and NAME_filters)")
+    p.set_defaults(run=cmd_nature)
 
     p = sub.add_parser("session", help="check a saved session against its input files")
     p.add_argument("session", help="session file (.json) saved by the app")

@@ -29,14 +29,18 @@ The scenario
     object placed just inside the fold caustic, whose two images merge on
     the critical curve, the cluster members' light (Sersic profiles) and
     faint field galaxies, convolving with a Moffat PSF and adding sky noise
-    from a seeded generator. Positions that matter (the fold, the compact
+    from a seeded generator. The same scene is rendered in four invented
+    filters (`FILTERS`), each with its own WCS, PSF and zero point; the
+    compact object is a blackbody of `COMPACT_TEMPERATURE` at the source
+    redshift, the other parts have power-law SEDs. Positions that matter (the fold, the compact
     object's distance from the caustic, the mirrored clump's images) are
     computed with the library itself, on the truth model's float32 maps as
     they are written to disk.
 
 Modules: `scenario` (the invented numbers), `maps` (lens models on disk),
 `fold` (the fold and the images of a source), `render` (the cutout),
-`generate` (writing the files), `loading` (`load_demo`), `readme`.
+`colours` (the components through each filter), `generate` (writing the
+files), `loading` (`load_demo`, `load_demo_filters`), `readme`.
 
 `generate_demo` writes the files deterministically: the same seed gives the
 same bytes (no dates or checksums in the headers). `load_demo` reads them
@@ -44,8 +48,8 @@ back through `lensview.io.fits` and `lensview.io`.
 """
 
 from .generate import generate_demo
-from .loading import load_demo
-from .scenario import (CANDIDATE_FILE, CLUSTER_NAME, CUTOUT_FILE, DEFAULT_SEED, DEMO_DIRECTORY, GRIDS,
+from .loading import load_demo, load_demo_filters
+from .scenario import (COMPACT_TEMPERATURE, FILTERS, REFERENCE_FILTER, CANDIDATE_FILE, CLUSTER_NAME, CUTOUT_FILE, DEFAULT_SEED, DEMO_DIRECTORY, GRIDS,
                        MODEL_NAMES, README_FILE, TRUTH_MODEL, Z_LENS, Z_SOURCE, lens_profiles)
 
 __all__ = [
@@ -62,5 +66,9 @@ __all__ = [
     "GRIDS",
     "generate_demo",
     "load_demo",
+    "load_demo_filters",
+    "FILTERS",
+    "REFERENCE_FILTER",
+    "COMPACT_TEMPERATURE",
     "lens_profiles",
 ]

@@ -10,10 +10,11 @@ from astropy.table import Table
 from ..cosmology import angular_scale
 from ..errors import LensviewInputError
 from .fold import ImageFinder, fold_frame, inward_for_separation
+from .colours import filter_look
 from .maps import model_maps, write_model
 from .readme import readme_text
 from .render import cutout_header, render_cutout
-from .scenario import CANDIDATE_FILE, CLUSTER_NAME, COMPACT_SEPARATION, CUTOUT_FILE, DEFAULT_SEED, DEMO_DIRECTORY, GRIDS, KNOTS, MIRROR_SEPARATION, MODEL_NAMES, README_FILE, TRUTH_MODEL, Z_LENS, Z_SOURCE
+from .scenario import FILTERS, REFERENCE_FILTER, CANDIDATE_FILE, CLUSTER_NAME, COMPACT_SEPARATION, CUTOUT_FILE, DEFAULT_SEED, DEMO_DIRECTORY, GRIDS, KNOTS, MIRROR_SEPARATION, MODEL_NAMES, README_FILE, TRUTH_MODEL, Z_LENS, Z_SOURCE
 
 
 def _check_options(seed, size_factor):
@@ -50,7 +51,7 @@ def generate_demo(directory=DEMO_DIRECTORY, seed=None, *, size_factor=1.0):
     Returns
     -------
     list of `pathlib.Path`
-        The files written: model maps, cutout, candidate list, README.
+        The files written: model maps, cutouts (one per filter), candidate list, README.
 
     Raises
     ------
@@ -83,10 +84,21 @@ def generate_demo(directory=DEMO_DIRECTORY, seed=None, *, size_factor=1.0):
 
     images = {knot.label: finder.pair(fold.source(knot.along, inward))
               for knot, inward in knots if knot.label}
-    image, cutout_wcs, arc_mu = render_cutout(finder, knots, images["C"], size_factor, seed)
+    image, cutout_wcs, arc_mu, draws = render_cutout(finder, knots, images["C"], size_factor, seed)
     cutout_path = directory / CUTOUT_FILE
     fits.PrimaryHDU(image, cutout_header(cutout_wcs, seed)).writeto(cutout_path, overwrite=True)
     written.append(cutout_path)
+    for demo_filter in FILTERS:
+        if demo_filter.name == REFERENCE_FILTER:
+            continue
+        look = filter_look(demo_filter)
+        band_data, band_wcs, _, _ = render_cutout(finder, knots, images["C"], size_factor, seed,
+                                                  look=look, draws=draws,
+                                                  reference_wcs=cutout_wcs)
+        band_path = directory / demo_filter.file
+        fits.PrimaryHDU(band_data, cutout_header(band_wcs, seed, look)).writeto(
+            band_path, overwrite=True)
+        written.append(band_path)
 
     truth_values = _truth_values(fields, fold, knots, images, arc_mu)
     candidates = _candidate_table(truth, images, knots, truth_values)

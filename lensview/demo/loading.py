@@ -6,7 +6,7 @@ from astropy.io import fits
 from astropy.table import Table
 
 from ..errors import LensviewInputError
-from .scenario import CANDIDATE_FILE, CUTOUT_FILE, DEMO_DIRECTORY, GRIDS
+from .scenario import CANDIDATE_FILE, CUTOUT_FILE, DEMO_DIRECTORY, FILTERS, GRIDS
 
 
 def load_demo(directory=None):
@@ -63,3 +63,35 @@ def load_demo(directory=None):
     return cutout, fields, candidates
 
 
+
+
+def load_demo_filters(directory=None):
+    """The demo field in each of its invented filters, blue to red.
+
+    Parameters
+    ----------
+    directory : str or path-like, optional
+        Folder written by `generate_demo`; default `DEMO_DIRECTORY`.
+
+    Returns
+    -------
+    list of `~lensview.photometry.BandImage`
+        One per filter of `FILTERS`, with name, pivot wavelength, PSF FWHM
+        and AB zero point read from the headers; the reference filter is the
+        cutout `load_demo` returns.
+
+    Raises
+    ------
+    LensviewInputError
+        If a demo file is missing.
+    """
+    import lensview as lv
+
+    directory = DEMO_DIRECTORY if directory is None else Path(directory)
+    paths = [directory / f.file for f in FILTERS]
+    missing = [p.name for p in paths if not p.is_file()]
+    if missing:
+        raise LensviewInputError(
+            f"The demo files {', '.join(missing)} are missing from {directory}; write them with "
+            f"`lensview demo {directory}` (or lensview.demo.generate_demo).")
+    return [lv.band_image(lv.read_cutout(path)) for path in paths]

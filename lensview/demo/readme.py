@@ -5,12 +5,47 @@ import numpy as np
 import astropy.units as u
 from astropy.coordinates import SkyCoord
 from .maps import scaled_size
+from .scenario import (CLUMP_SLOPE, COMPACT_TEMPERATURE, FIELD_SLOPE, FILTERS, HOST_SLOPE,
+                       MEMBER_SLOPE, REFERENCE_FILTER)
 from .scenario import CANDIDATE_FILE, CENTRE, CLUSTER_NAME, CUTOUT_FILE, CUTOUT_SCALE, CUTOUT_SHAPE, GRIDS, HOST, KNOTS, MEMBERS, MODEL_NAMES, OVERSAMPLE, PSF_BETA, PSF_FWHM, SKY_SIGMA, TRUTH_MODEL, ZERO_POINT, Z_LENS, Z_SOURCE, describe_model
 
 
 
 def _radec(coord):
     return f"{coord.ra.deg:.7f}, {coord.dec.deg:+.7f}"
+
+
+def _compact_truth():
+    """True temperature, luminosity and radius of the compact object C."""
+    from ..sed import blackbody_flux_density, stefan_boltzmann_luminosity
+    from astropy.cosmology import Planck18
+
+    reference = next(f for f in FILTERS if f.name == REFERENCE_FILTER)
+    observed = (KNOTS[0].mag * u.ABmag).to(u.uJy)
+    # Unlensed Omega = (1 + z) pi R^2 / D_L^2 (see lensview.sed).
+    omega = float(observed / blackbody_flux_density(reference.pivot_um * u.um,
+                                                     COMPACT_TEMPERATURE, 1.0, Z_SOURCE))
+    radius = (Planck18.luminosity_distance(Z_SOURCE) * np.sqrt(omega / (np.pi * (1 + Z_SOURCE)))
+              ).to(u.R_sun)
+    luminosity = stefan_boltzmann_luminosity(radius, COMPACT_TEMPERATURE)
+    radius_pc = radius.to_value(u.pc)
+    return luminosity.to_value(u.L_sun), radius.to_value(u.R_sun), radius_pc
+
+
+def _filters_section(size_factor):
+    from .colours import compact_magnitude, filter_look
+
+    rows = []
+    for f in FILTERS:
+        look = filter_look(f)
+        base = int(round(CUTOUT_SHAPE[0] * CUTOUT_SCALE / f.scale))
+        n = scaled_size(base, size_factor)
+        rows.append(f"| `{f.file}` | {f.name} | {f.pivot_um:g} | {f.psf_fwhm:g}\" | {f.zero_point:g} | "
+                    f"{n} x {n} of {f.scale * base / n:.4g}\", +y at PA {f.rotation:+.0f} deg | "
+                    f"{f.sky_sigma:g} | {compact_magnitude(f.pivot_um):.2f} | "
+                    f"{HOST['mag'] + look.host_offset:.2f} |")
+    luminosity, radius, radius_pc = _compact_truth()
+    return "\n".join(rows), luminosity, radius, radius_pc
 
 
 def readme_text(fields, values, candidates, size_factor, seed):
@@ -50,6 +85,10 @@ def readme_text(fields, values, candidates, size_factor, seed):
                             for i, row in enumerate(values["source_images"]))
     lens_pc, source_pc = values["pc_per_arcsec_lens"], values["pc_per_arcsec_source"]
     c_offsets, c_mu = compact["curve_offsets"], compact["mu"]
+    from ..nature import MAX_STELLAR_MASS, eddington_luminosity
+
+    filter_rows, compact_luminosity, compact_radius, compact_radius_pc = _filters_section(size_factor)
+    eddington = eddington_luminosity(MAX_STELLAR_MASS).to_value(u.L_sun)
     fold_offsets = ", ".join(f"{name} {values['curve_offsets_at_fold'][name]:.3f}\""
                              for name in MODEL_NAMES)
     return f"""# Demo scenario: the {CLUSTER_NAME} (invented data)
@@ -101,6 +140,34 @@ magnifications. Member galaxies are Sersic profiles at the models' member
 positions, and there are twelve faint unlensed field galaxies. The image is
 convolved with a Moffat PSF (FWHM {PSF_FWHM}\", beta = {PSF_BETA}) and carries Gaussian sky
 noise (sigma = {SKY_SIGMA} count/s per pixel) from seed {seed}.
+
+## Filters
+
+The field is rendered in four invented filters (names of our own), each
+cutout with its own WCS (pixel scale and rotation), Moffat PSF and AB zero
+point in the header (`FILTER`, `PHOTPLAM` in Angstrom, `PSF_FWHM` in arcsec,
+`PHOTZP`); the same field galaxies and member galaxies appear in all. The
+magnitudes quoted elsewhere in this README are those of the reference filter
+{REFERENCE_FILTER} (`{CUTOUT_FILE}`, the cutout `load_demo` returns). In the
+other filters each part of the scene is brighter or fainter by its SED, taken
+at the pivot wavelength: the compact object C is a **blackbody of
+{COMPACT_TEMPERATURE:.0f} K** in its rest frame at z = {Z_SOURCE}; the host has f_nu ~ lambda^{HOST_SLOPE:g},
+the clumps f_nu ~ lambda^{CLUMP_SLOPE:g}, the members f_nu ~ lambda^{MEMBER_SLOPE:g} and the field
+galaxies f_nu ~ lambda^{FIELD_SLOPE:g}. No dust.
+
+| file | filter | pivot (micron) | PSF FWHM | zero point (AB) | grid | sky sigma (count/s) \
+| C intrinsic AB | host intrinsic AB |
+| --- | --- | --- | --- | --- | --- | --- | --- | --- |
+{filter_rows}
+
+**True nature of C**: unlensed, a blackbody of {COMPACT_TEMPERATURE:.0f} K and intrinsic AB {KNOTS[0].mag} at
+{REFERENCE_FILTER} has radius **{compact_radius:.0f} R_sun** ({compact_radius_pc:.3g} pc) and bolometric
+luminosity **{compact_luminosity:.3g} L_sun** (log L/L_sun = {np.log10(compact_luminosity):.2f}; nominal solar
+units of IAU 2015 Resolution B3, Planck18 distances). That is {compact_luminosity / eddington:.1f} times the
+Eddington luminosity of a {MAX_STELLAR_MASS.value:.0f} M_sun star and far smaller than a star cluster: the
+invented object is beyond what one steady star can be, and how clearly a measurement says so
+depends on the magnification each model gives it (`lensview.knot_nature`).
+`lensview.demo.load_demo_filters()` returns the four cutouts as `BandImage`s.
 
 ## Files
 

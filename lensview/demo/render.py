@@ -1,6 +1,8 @@
 """Rendering the observed cutout: the ray-traced arc, members, field galaxies, PSF and noise."""
 
 
+from dataclasses import replace
+
 import numpy as np
 import astropy.units as u
 from astropy.modeling.models import Sersic2D
@@ -8,13 +10,14 @@ from scipy.signal import fftconvolve
 from scipy.special import gamma as gamma_function, gammaincinv
 
 from .. import analytic
+from .colours import REFERENCE_LOOK
 from .maps import scaled_size
 from .scenario import CLUSTER_NAME, CUTOUT_CENTRE, CUTOUT_SCALE, CUTOUT_SHAPE, HOST, MEMBERS, OVERSAMPLE, PSF_BETA, PSF_FWHM, SKY_SIGMA, TRACED_SIGMA, ZERO_POINT, Z_LENS, Z_SOURCE, scenario_sky
 
 
-def _flux(mag):
-    """Counts per second of an AB magnitude at the cutout's zero point."""
-    return 10.0 ** (-0.4 * (mag - ZERO_POINT))
+def _flux(mag, zero_point=ZERO_POINT):
+    """Counts per second of an AB magnitude at a cutout's zero point."""
+    return 10.0 ** (-0.4 * (mag - zero_point))
 
 
 def _sersic_amplitude(total, r_eff, n, ellip):
@@ -26,10 +29,10 @@ def _sersic_amplitude(total, r_eff, n, ellip):
                                    * r_eff ** 2 * (1 - ellip))
 
 
-def _source_brightness(uv_along, uv_inward, knots):
+def _source_brightness(uv_along, uv_inward, knots, look):
     """Surface brightness (counts/s/arcsec^2) of the source at fold-frame offsets."""
     host = HOST
-    total = _flux(host["mag"])
+    total = _flux(look.host_mag, look.zero_point)
     brightness = Sersic2D.evaluate(uv_along, uv_inward,
                                    _sersic_amplitude(total, host["r_eff"], host["sersic_n"],
                                                      host["ellip"]),
@@ -39,15 +42,18 @@ def _source_brightness(uv_along, uv_inward, knots):
         if knot.sigma < TRACED_SIGMA:
             continue
         r2 = (uv_along - knot.along) ** 2 + (uv_inward - inward) ** 2
-        brightness = brightness + _flux(knot.mag) / (2 * np.pi * knot.sigma ** 2) * np.exp(
+        brightness = brightness + _flux(knot.mag, look.zero_point) / (2 * np.pi * knot.sigma ** 2) * np.exp(
             -0.5 * r2 / knot.sigma ** 2)
     return brightness
 
 
-def _cutout_wcs(size_factor):
-    n = scaled_size(CUTOUT_SHAPE[0], size_factor)
-    scale = CUTOUT_SCALE * CUTOUT_SHAPE[0] / n
-    return analytic.make_wcs(scenario_sky(*CUTOUT_CENTRE), (n, n), scale * u.arcsec), (n, n), scale
+def _cutout_wcs(size_factor, look):
+    base = int(round(CUTOUT_SHAPE[0] * CUTOUT_SCALE / look.scale))
+    n = scaled_size(base, size_factor)
+    scale = look.scale * base / n
+    extra = {} if look.rotation == 0 else dict(rotation=look.rotation * u.deg)
+    return (analytic.make_wcs(scenario_sky(*CUTOUT_CENTRE), (n, n), scale * u.arcsec, **extra),
+            (n, n), scale)
 
 
 def _subpixel_grid(shape):
@@ -58,7 +64,7 @@ def _subpixel_grid(shape):
     return np.meshgrid(sub_x, sub_y)
 
 
-def _lensed_source(field, fold, knots, cutout_wcs, shape, scale):
+def _lensed_source(field, fold, knots, cutout_wcs, shape, scale, look):
     """Supersampled lensed source: ray tracing through the truth model,
     surface brightness conserved (Schneider, Ehlers & Falco 1992, sec. 5.2)."""
     sub_x, sub_y = _subpixel_grid(shape)
@@ -72,7 +78,7 @@ def _lensed_source(field, fold, knots, cutout_wcs, shape, scale):
         offset = np.column_stack([bx, by]) - fold.point
         along = offset @ fold.along * fold.scale
         inward = offset @ fold.inward * fold.scale
-        values = _source_brightness(along, inward, knots)
+        values = _source_brightness(along, inward, knots, look)
         out[start:start + chunk] = np.where(np.isfinite(values), values, 0.0)
     return out.reshape(sub_x.shape) * (scale / OVERSAMPLE) ** 2
 
@@ -82,7 +88,7 @@ def _map_to_cutout(field, cutout_wcs):
     return np.linalg.solve(cutout_wcs.celestial.pixel_scale_matrix, field.wcs.pixel_scale_matrix)
 
 
-def _add_knot_images(image, finder, knot, beta, cutout_wcs):
+def _add_knot_images(image, finder, knot, beta, cutout_wcs, zero_point):
     """Add the images of a small clump, each an elliptical Gaussian from the
     local linear lens mapping beta - beta_i = A (theta - theta_i), which
     keeps surface brightness and gives each image |mu| times the flux
@@ -103,7 +109,7 @@ def _add_knot_images(image, finder, knot, beta, cutout_wcs):
         # Image-plane covariance in sub-pixels, plus the variance of a sub-pixel box.
         covariance = sigma ** 2 * inverse @ inverse.T + np.eye(2) / 12
         _add_gaussian(image, (centres[k] + 0.5) * OVERSAMPLE - 0.5, covariance,
-                      abs(mu[k]) * _flux(knot.mag))
+                      abs(mu[k]) * _flux(knot.mag, zero_point))
 
 
 def _add_gaussian(image, centre, covariance, flux):
@@ -133,14 +139,32 @@ def _position_angle_to_theta(wcs, pa_deg):
     return float(np.arctan2(py, px))
 
 
-def _sersic_on_subgrid(sub_x, sub_y, x0, y0, mag, r_eff_pix, n, ellip, theta):
-    return Sersic2D.evaluate(sub_x, sub_y, _sersic_amplitude(_flux(mag), r_eff_pix, n, ellip)
+def _sersic_on_subgrid(sub_x, sub_y, x0, y0, mag, r_eff_pix, n, ellip, theta, zero_point):
+    return Sersic2D.evaluate(sub_x, sub_y, _sersic_amplitude(_flux(mag, zero_point), r_eff_pix, n, ellip)
                              / OVERSAMPLE ** 2, r_eff_pix, n, x0, y0, ellip, theta)
 
 
-def _galaxies(cutout_wcs, shape, scale, arc_mask, rng):
-    """Member galaxies where the models put them, and faint unlensed field
-    galaxies at random places away from the arc (supersampled counts/s)."""
+def _field_galaxy_draws(shape, arc_mask, rng):
+    """Faint unlensed field galaxies at random places away from the arc, in the
+    reference cutout's pixels: (x0, y0, mag, r_eff arcsec, n, ellip, theta)."""
+    draws = []
+    ny, nx = shape
+    while len(draws) < 12:
+        x0, y0 = rng.uniform(0, nx - 1), rng.uniform(0, ny - 1)
+        mag = rng.uniform(24.0, 27.5)
+        r_eff = rng.uniform(0.08, 0.30)
+        n = rng.choice([0.8, 1.0, 1.5, 2.5])
+        ellip = rng.uniform(0.0, 0.6)
+        theta = rng.uniform(0.0, np.pi)
+        if arc_mask[int(round(y0)), int(round(x0))]:
+            continue
+        draws.append((x0, y0, mag, r_eff, n, ellip, theta))
+    return draws
+
+
+def _galaxies(cutout_wcs, shape, scale, draws, look, reference_wcs=None):
+    """Member galaxies where the models put them, and the field galaxies
+    (drawn on ``reference_wcs``, default this cutout's), supersampled counts/s."""
     sub_x, sub_y = _subpixel_grid(shape)
     image = np.zeros(sub_x.shape)
     for m in MEMBERS:
@@ -149,21 +173,19 @@ def _galaxies(cutout_wcs, shape, scale, arc_mask, rng):
         reach = 12 * m.r_eff / scale
         if not (-reach < x0 < shape[1] + reach and -reach < y0 < shape[0] + reach):
             continue
-        image += _sersic_on_subgrid(sub_x, sub_y, x0, y0, m.mag, m.r_eff / scale, m.sersic_n,
-                                    m.ellip, _position_angle_to_theta(cutout_wcs, m.pa))
-    placed = 0
-    ny, nx = shape
-    while placed < 12:
-        x0, y0 = rng.uniform(0, nx - 1), rng.uniform(0, ny - 1)
-        mag = rng.uniform(24.0, 27.5)
-        r_eff = rng.uniform(0.08, 0.30) / scale
-        n = rng.choice([0.8, 1.0, 1.5, 2.5])
-        ellip = rng.uniform(0.0, 0.6)
-        theta = rng.uniform(0.0, np.pi)
-        if arc_mask[int(round(y0)), int(round(x0))]:
-            continue
-        image += _sersic_on_subgrid(sub_x, sub_y, x0, y0, mag, r_eff, n, ellip, theta)
-        placed += 1
+        image += _sersic_on_subgrid(sub_x, sub_y, x0, y0, m.mag + look.member_offset,
+                                    m.r_eff / scale, m.sersic_n, m.ellip,
+                                    _position_angle_to_theta(cutout_wcs, m.pa), look.zero_point)
+    for x0, y0, mag, r_eff, n, ellip, theta in draws:
+        if reference_wcs is not None:
+            # Same galaxy on the sky: move its centre and turn its axis into this cutout's pixels.
+            x0, y0 = (float(v) for v in cutout_wcs.world_to_pixel(reference_wcs.pixel_to_world(x0, y0)))
+            axis = np.linalg.solve(cutout_wcs.celestial.pixel_scale_matrix,
+                                   reference_wcs.celestial.pixel_scale_matrix
+                                   @ [np.cos(theta), np.sin(theta)])
+            theta = float(np.arctan2(axis[1], axis[0]))
+        image += _sersic_on_subgrid(sub_x, sub_y, x0, y0, mag + look.field_offset, r_eff / scale,
+                                    n, ellip, theta, look.zero_point)
     return image
 
 
@@ -179,11 +201,11 @@ def _deposit_points(image, positions, fluxes):
                     image[iy + dy, ix + dx] += flux * wx * wy
 
 
-def _psf_kernel(scale):
-    """Moffat PSF (Moffat 1969, A&A 3, 455) of FWHM `PSF_FWHM`, on the
+def _psf_kernel(scale, psf_fwhm=PSF_FWHM):
+    """Moffat PSF (Moffat 1969, A&A 3, 455) of FWHM ``psf_fwhm``, on the
     supersampled grid, normalised to unit sum."""
     sub = scale / OVERSAMPLE
-    alpha = PSF_FWHM / (2 * np.sqrt(2 ** (1 / PSF_BETA) - 1))
+    alpha = psf_fwhm / (2 * np.sqrt(2 ** (1 / PSF_BETA) - 1))
     half = int(np.ceil(1.2 / sub))
     r = np.arange(-half, half + 1) * sub
     rx, ry = np.meshgrid(r, r)
@@ -196,13 +218,16 @@ def _bin(image):
     return image.reshape(ny, OVERSAMPLE, nx, OVERSAMPLE).sum(axis=(1, 3))
 
 
-def cutout_header(wcs, seed):
+def cutout_header(wcs, seed, look=None):
+    look = REFERENCE_LOOK if look is None else look
     header = wcs.to_header()
     header["BUNIT"] = ("count/s", "invented detector counts per second")
-    header["PHOTZP"] = (ZERO_POINT, "AB magnitude of 1 count/s")
-    header["PSF_FWHM"] = (PSF_FWHM, "[arcsec] Moffat PSF FWHM")
+    header["FILTER"] = (look.name, "invented filter of the demo")
+    header["PHOTPLAM"] = (look.pivot_um * 1e4, "[Angstrom] pivot wavelength")
+    header["PHOTZP"] = (look.zero_point, "AB magnitude of 1 count/s")
+    header["PSF_FWHM"] = (look.psf_fwhm, "[arcsec] Moffat PSF FWHM")
     header["PSF_BETA"] = (PSF_BETA, "Moffat PSF index")
-    header["SKYSIGMA"] = (SKY_SIGMA, "[count/s] Gaussian sky noise per pixel")
+    header["SKYSIGMA"] = (look.sky_sigma, "[count/s] Gaussian sky noise per pixel")
     header["OBJECT"] = (CLUSTER_NAME, "invented demo cluster")
     header["Z_LENS"] = (Z_LENS, "cluster redshift")
     header["Z_ARC"] = (Z_SOURCE, "redshift of the lensed galaxy")
@@ -211,27 +236,40 @@ def cutout_header(wcs, seed):
     return header
 
 
-def render_cutout(finder, knots, compact_images, size_factor, seed):
-    """The observed image (float32), its WCS and the arc's total magnification
-    (lensed over intrinsic flux of the extended source, noise free)."""
+def render_cutout(finder, knots, compact_images, size_factor, seed, look=None, draws=None,
+                  reference_wcs=None):
+    """The observed image (float32), its WCS, the arc's total magnification
+    (lensed over intrinsic flux of the extended source, noise free) and the
+    field galaxies drawn. ``look`` (default: the reference filter) sets the
+    filter's grid, PSF, zero point, noise and the components' magnitudes;
+    ``draws`` and ``reference_wcs`` reuse the reference filter's field galaxies."""
+    look = REFERENCE_LOOK if look is None else look
     truth, fold = finder.field, finder.fold
-    cutout_wcs, shape, scale = _cutout_wcs(size_factor)
-    lensed = _lensed_source(truth, fold, knots, cutout_wcs, shape, scale)
+    cutout_wcs, shape, scale = _cutout_wcs(size_factor, look)
+    knots = [(replace(k, mag=k.mag + look.knot_offset(k)), inward) for k, inward in knots]
+    lensed = _lensed_source(truth, fold, knots, cutout_wcs, shape, scale, look)
     for knot, inward in knots:
         if 0 < knot.sigma < TRACED_SIGMA:
-            _add_knot_images(lensed, finder, knot, fold.source(knot.along, inward), cutout_wcs)
-    intrinsic = _flux(HOST["mag"]) + sum(_flux(k.mag) for k, _ in knots if k.sigma > 0)
+            _add_knot_images(lensed, finder, knot, fold.source(knot.along, inward), cutout_wcs,
+                             look.zero_point)
+    intrinsic = (_flux(look.host_mag, look.zero_point)
+                 + sum(_flux(k.mag, look.zero_point) for k, _ in knots if k.sigma > 0))
     arc_mu = float(lensed.sum() / intrinsic)
     compact_xy, compact_mu = compact_images
     cx, cy = cutout_wcs.world_to_pixel(truth.pixels_to_sky(compact_xy[:, 0], compact_xy[:, 1]))
     compact = next(k for k, _ in knots if k.label == "C")
-    _deposit_points(lensed, np.column_stack([cx, cy]), np.abs(compact_mu) * _flux(compact.mag))
+    _deposit_points(lensed, np.column_stack([cx, cy]),
+                    np.abs(compact_mu) * _flux(compact.mag, look.zero_point))
 
-    rng = np.random.default_rng(seed)
-    galaxies = _galaxies(cutout_wcs, shape, scale, _arc_mask(_bin(lensed), scale), rng)
-    model_image = _bin(fftconvolve(lensed + galaxies, _psf_kernel(scale), mode="same"))
-    image = (model_image + rng.normal(0.0, SKY_SIGMA, shape)).astype(np.float32)
-    return image, cutout_wcs, arc_mu
+    if draws is None:
+        rng = np.random.default_rng(seed)
+        draws = _field_galaxy_draws(shape, _arc_mask(_bin(lensed), scale), rng)
+    else:
+        rng = np.random.default_rng([seed, look.index])
+    galaxies = _galaxies(cutout_wcs, shape, scale, draws, look, reference_wcs)
+    model_image = _bin(fftconvolve(lensed + galaxies, _psf_kernel(scale, look.psf_fwhm), mode="same"))
+    image = (model_image + rng.normal(0.0, look.sky_sigma, shape)).astype(np.float32)
+    return image, cutout_wcs, arc_mu, draws
 
 
 def _arc_mask(arc, scale):

@@ -244,3 +244,39 @@ def describe_model(model):
     return "; ".join(parts)
 
 
+
+
+@dataclass(frozen=True)
+class DemoFilter:
+    """One invented filter of the demo field and the cutout taken in it.
+
+    The knots' magnitudes in `KNOTS` and `HOST` are those of the reference
+    filter; the other filters scale them by the components' SEDs."""
+
+    name: str
+    pivot_um: float
+    psf_fwhm: float  # arcsec
+    zero_point: float  # AB magnitude of one count per second
+    scale: float  # arcsec per pixel
+    rotation: float  # degrees, position angle of the cutout's +y axis
+    sky_sigma: float  # counts per second per pixel
+    file: str
+
+
+#: The filters of the demo field (invented names), blue to red; the reference
+#: filter is the original cutout `CUTOUT_FILE`, unchanged.
+FILTERS = (
+    DemoFilter("lantern-090", 0.90, 0.085, 27.6, 0.040, 12.0, 0.018, "lantern_arc_090.fits"),
+    DemoFilter("lantern-150", 1.50, PSF_FWHM, ZERO_POINT, CUTOUT_SCALE, 0.0, SKY_SIGMA,
+               CUTOUT_FILE),
+    DemoFilter("lantern-240", 2.40, 0.13, 28.3, 0.050, -8.0, 0.012, "lantern_arc_240.fits"),
+    DemoFilter("lantern-380", 3.80, 0.17, 28.6, 0.060, 25.0, 0.010, "lantern_arc_380.fits"),
+)
+REFERENCE_FILTER = "lantern-150"
+#: Rest-frame blackbody temperature (K) of the compact object C.
+COMPACT_TEMPERATURE = 8000.0
+#: f_nu proportional to wavelength**slope, for the parts without a blackbody.
+HOST_SLOPE = 1.0
+CLUMP_SLOPE = 0.0
+MEMBER_SLOPE = 2.0
+FIELD_SLOPE = 0.7

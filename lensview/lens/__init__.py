@@ -12,5 +12,5 @@ from .local import LocalFit, LocalTerms
 from .field import DeflectionField
 from .loading import FROM_HEADER, load_model
 
-__all__ = ["Curve", "CurveSet", "DeflectionField", "DroppedLoop", "FROM_HEADER", "LocalTerms",
-           "load_model"]
+__all__ = ["Curve", "CurveSet", "DeflectionField", "DroppedLoop", "FROM_HEADER", "LocalFit",
+           "LocalTerms", "load_model"]

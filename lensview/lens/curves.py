@@ -70,7 +70,7 @@ class Curve:
     position_floor_pix : float
         For critical curves, the positional uncertainty the map's own
         storage precision leaves (RMS over the vertices of
-        sigma(det A) / |grad det A|, map pixels; `lensview.precision`);
+        sigma(det A) / |grad det A|, map pixels; `lensview.lens.precision`);
         NaN for caustics.
     position_floor : `~astropy.units.Quantity`
         The same in arcsec (geometric mean pixel scale).

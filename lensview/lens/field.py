@@ -23,7 +23,7 @@ Two evaluation paths, both free of any global spline:
   analytic derivatives give the Jacobian there: the six-point Lagrange
   interpolant on float64 maps, and on float32 maps the widest least-squares
   window whose result agrees with narrower ones within the map's rounding
-  noise (`lensview.precision`). det A is thus smooth near each point and mu is
+  noise (`lensview.lens.precision`). det A is thus smooth near each point and mu is
   never interpolated.
 """
 
@@ -331,8 +331,8 @@ class DeflectionField:
         On float64 maps the fit is the 6-node (degree-5) Lagrange
         interpolant. On maps stored with less precision (float32) each point
         gets the widest least-squares window of
-        `lensview.precision.WINDOW_LADDER` whose Jacobian agrees with the
-        narrower windows' within their rounding noise (`lensview.precision`).
+        `lensview.lens.precision.WINDOW_LADDER` whose Jacobian agrees with the
+        narrower windows' within their rounding noise (`lensview.lens.precision`).
         The fits stay valid for positions moved by up to a pixel, so Newton
         iterations evaluate them without gathering the map again.
 
@@ -388,7 +388,7 @@ class DeflectionField:
         return LocalFit.scatter(parts, [mine for _, mine in groups], inside)
 
     def _choose_windows(self, xs, ys, ladder):
-        """Window size per point by intersecting confidence intervals (`lensview.precision`),
+        """Window size per point by intersecting confidence intervals (`lensview.lens.precision`),
         with the widest window's fits per block and each point's block index.
 
         The choice is made once per block of cells the widest window is shared

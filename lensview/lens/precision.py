@@ -11,7 +11,7 @@ uncorrelated between nodes.
 
 Derivatives are linear combinations of node values, so the noise reaches
 each estimate multiplied by the Euclidean norm of its weights. A least-squares
-polynomial fit over a wider window (`lensview.stencils.fit_weights`) lowers
+polynomial fit over a wider window (`lensview.lens.stencils.fit_weights`) lowers
 that gain about as n**-1.5 for a first derivative and n**-0.5 for the value
 in the other axis, at the price of a truncation error that grows with the
 window. The window for each point is chosen by the intersection of
@@ -119,7 +119,7 @@ def det_a_sigma(terms, f):
 
     Parameters
     ----------
-    terms : `~lensview.deflection.LocalTerms`
+    terms : `~lensview.lens.local.LocalTerms`
         Must carry ``sigma_a`` (standard deviations of a11, a12, a21, a22).
     f : float
         Scaling factor for the source redshift.

@@ -10,7 +10,7 @@ spline over a large map:
   deflection Jacobian and its gradient anywhere on the grid;
 * its least-squares generalisation to wider windows (tensor-product
   polynomial fits, `fit_coefficients`), which averages down the rounding noise
-  of maps stored with few digits (see `lensview.precision`).
+  of maps stored with few digits (see `lensview.lens.precision`).
 """
 
 import functools

@@ -3,16 +3,18 @@
 One module per panel: `inputs` (sidebar "Field and models"), `sky` (the
 clickable picture and marking controls), `knots` (knot list and
 measurements), `images` (counter-images and pairs), `source` (source plane),
-`takeaway` (downloads and restore), `ensemble` (knots over many realisations);
+`nature` (colours, temperature and what the knot can be), `takeaway`
+(downloads and restore), `ensemble` (knots over many realisations);
 `state` keeps the knots, `viewport` maps picture pixels to cutout pixels,
-`picture` draws, and `analysis` gathers the library's numbers once per rerun. No physics lives here.
+`picture` draws, and `analysis` gathers the library's numbers once per rerun.
+No physics lives here.
 """
 
 __all__ = ["main"]
 
 TITLE = "lensview"
-TABS = ("Measurements", "Counter-images and pairs", "Source plane", "Take away and restore",
-        "Posterior spread")
+TABS = ("Measurements", "Counter-images and pairs", "Source plane", "Colours and nature",
+        "Posterior spread", "Take away and restore")
 
 
 def main():
@@ -25,6 +27,7 @@ def main():
     from .images import images_panel, pairing_settings
     from .inputs import inputs_panel
     from .knots import knot_list, measurement_panel
+    from .nature import nature_panel, scene_filters
     from .sky import display_settings, marking_controls, process_click, sky_panel
     from .source import source_panel
     from .takeaway import takeaway_panel
@@ -36,7 +39,9 @@ def main():
     st.sidebar.caption("Critical curves, magnifications and mirrored images of knots in "
                        "cluster-lensed arcs, compared across lens models.")
     scene, errors = inputs_panel(state)
-    settings = display_settings([f.name for f in scene.fields] if scene is not None else ())
+    filters, _ = scene_filters(state, scene)
+    settings = display_settings([f.name for f in scene.fields] if scene is not None else (),
+                                [image.band.name for image in filters])
     for message in errors:
         st.error(message)
     if scene is None:
@@ -65,12 +70,12 @@ def main():
 
     picture_column, side_column = st.columns([3, 1.4])
     with picture_column:
-        viewport = sky_panel(state, scene, settings, z_source, results)
+        viewport = sky_panel(state, scene, settings, z_source, results, filters=filters)
     with side_column:
         marking_controls(state, scene, results.focus)
         knot_list(state)
 
-    measurements, images, source, takeaway, spread = st.tabs(TABS)
+    measurements, images, source, nature, spread, takeaway = st.tabs(TABS)
     with measurements:
         measurement_panel(results)
     with images:
@@ -81,3 +86,7 @@ def main():
         takeaway_panel(state, scene, z_source, results, settings, viewport)
     with spread:
         ensemble_panel(state, scene, z_source, results)
+    # Filled last: measuring every filter takes a moment, and the downloads above
+    # must not wait for it (or be clicked while still stale).
+    with nature:
+        nature_panel(state, scene, z_source)

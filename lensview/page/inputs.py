@@ -28,6 +28,7 @@ __all__ = ["Scene", "HeldFile", "inputs_panel", "demo_scene", "files_scene", "up
 _SCENE = "lv_scene"
 _FILES = "lv_files"
 _MAX_MODELS = 8
+_MAX_FILTERS = 6
 PLANCK = "Planck18"
 FLAT = "flat \u039bCDM (H0, \u03a9m)"
 
@@ -66,6 +67,11 @@ class Scene:
         outside a convergence map).
     z_source : float
         Suggested source redshift.
+    filters : list of `~lensview.photometry.BandImage`
+        The field in several filters, ready (the demo's).
+    filter_files : list of `HeldFile`
+        Cutouts of the same field in more filters (uploads), read with the
+        user's band details by `lensview.page.nature.scene_filters`.
     """
 
     key: str
@@ -80,6 +86,8 @@ class Scene:
     knots: object = None
     z_source: float = 2.0
     notes: list = dataclass_field(default_factory=list)
+    filters: list = dataclass_field(default_factory=list)
+    filter_files: list = dataclass_field(default_factory=list)
 
 
 # ---------------------------------------------------------------------------- cached loaders
@@ -117,6 +125,13 @@ def _cached_demo(checksums):
     from ..demo import load_demo
 
     return load_demo()
+
+
+@st.cache_resource(max_entries=2, show_spinner=False)
+def _cached_demo_filters(checksums):
+    from ..demo import load_demo_filters
+
+    return load_demo_filters()
 
 
 @st.cache_resource(max_entries=8, show_spinner=False)
@@ -185,7 +200,7 @@ def demo_scene(z_lens=None, cosmology_choice=(PLANCK,)):
                  cutout=cutout, fields=fields, z_lens=z_lens, cosmology=fields[0].cosmology,
                  cutout_file=InputFile(cutout_name, by_name[cutout_name]),
                  model_inputs=model_inputs, files=files, knots=knots,
-                 z_source=float(demo.Z_SOURCE))
+                 z_source=float(demo.Z_SOURCE), filters=list(_cached_demo_filters(checksums)))
 
 
 def _demo_file_of_model(file_name, model_name):
@@ -246,7 +261,7 @@ def upload_slot(state, label, slot, *, keep=1, help=None):
     return held
 
 
-def files_scene(cutout_files, model_specs, z_lens, cosmology_choice):
+def files_scene(cutout_files, model_specs, z_lens, cosmology_choice, filter_files=()):
     """A scene from uploaded files.
 
     Parameters
@@ -258,6 +273,8 @@ def files_scene(cutout_files, model_specs, z_lens, cosmology_choice):
     z_lens : float
     cosmology_choice : tuple
         `cosmology_key` of the chosen cosmology.
+    filter_files : list of `HeldFile`
+        Cutouts of the same field in more filters.
 
     Raises
     ------
@@ -303,10 +320,13 @@ def files_scene(cutout_files, model_specs, z_lens, cosmology_choice):
     key = "files|" + image.sha256 + "|" + "|".join(
         f"{m.name}:{','.join(f.sha256 for f in m.files)}:{m.units}:{m.z_norm}" for m in model_inputs
     ) + f"|{float(z_lens)}|{cosmology_choice}|" + ",".join(str(s.get("kind")) for s in model_specs)
+    filter_files = list(filter_files)
+    if filter_files:
+        key += "|filters:" + ",".join(h.sha256 for h in filter_files)
     return Scene(key=key, title=f"{image.name} with {len(fields)} model(s)", cutout=cutout,
                  fields=fields, z_lens=float(z_lens), cosmology=fields[0].cosmology,
                  cutout_file=InputFile(image.name, image.sha256), model_inputs=model_inputs,
-                 files=files, notes=notes)
+                 files=files, notes=notes, filter_files=[image] + filter_files)
 
 
 # ---------------------------------------------------------------------------- the panel
@@ -349,8 +369,13 @@ def inputs_panel(state):
                                           key="lv_z_lens_files")
             with sidebar:
                 cutout_files, specs = _file_widgets(state)
+                filter_files = upload_slot(
+                    state, "More filters of the same field (FITS)", "filters", keep=_MAX_FILTERS,
+                    help="Cutouts in other filters, each with its own WCS; name, pivot "
+                         "wavelength, PSF and zero point come from the headers or from the "
+                         "'Colours and nature' tab.")
             with st.spinner("Reading the files and preparing the models..."):
-                scene = files_scene(cutout_files, specs, z_lens, key)
+                scene = files_scene(cutout_files, specs, z_lens, key, filter_files)
     except LensviewInputError as error:
         errors.append(str(error))
     except (OSError, ValueError) as error:

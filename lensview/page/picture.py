@@ -41,7 +41,8 @@ def render_base_layer(data, viewport, *, stretch, limits, cmap, curves=(), model
     Parameters
     ----------
     data : ndarray
-        The whole cutout; only the viewport's crop is drawn.
+        The whole cutout, or an (ny, nx, 3) RGB composite on its pixels; only
+        the viewport's crop is drawn.
     viewport : `~lensview.page.viewport.Viewport`
     stretch, limits, cmap
         Display settings (see `lensview.figures.display_norm`).
@@ -73,16 +74,21 @@ def render_base_layer(data, viewport, *, stretch, limits, cmap, curves=(), model
 
     from ..figures import display_norm, model_colours
 
-    crop = np.asarray(data[viewport.slices], dtype=float)
-    norm = display_norm(crop, stretch, limits)
     fig = Figure(figsize=(viewport.width / _DPI, viewport.height / _DPI), dpi=_DPI)
     FigureCanvasAgg(fig)
     ax = fig.add_axes((0, 0, 1, 1))
     ax.set_axis_off()
     left, right, bottom, top = viewport.extent
-    ax.imshow(crop, origin="lower", extent=viewport.extent, norm=norm,
-              cmap=colormaps[cmap].with_extremes(bad="#BFBFBF"), interpolation="nearest",
-              resample=False)
+    if np.ndim(data) == 3:
+        # A colour composite, already RGB on the cutout's pixels.
+        ax.imshow(np.asarray(data[viewport.slices]), origin="lower", extent=viewport.extent,
+                  interpolation="nearest", resample=False)
+    else:
+        crop = np.asarray(data[viewport.slices], dtype=float)
+        norm = display_norm(crop, stretch, limits)
+        ax.imshow(crop, origin="lower", extent=viewport.extent, norm=norm,
+                  cmap=colormaps[cmap].with_extremes(bad="#BFBFBF"), interpolation="nearest",
+                  resample=False)
     colours = model_colours(model_names)
     if contours is not None and len(contour_levels):
         rows, cols = viewport.slices

@@ -24,12 +24,23 @@ ZOOMS = (1, 1.5, 2, 3, 4, 6, 8, 12, 16)
 WIDTHS = (560, 720, 880, 1040)
 CONTOUR_LEVELS = (3.0, 10.0, 30.0)
 CLICK_KEY = "lv_click"
+CUTOUT_PICTURE = "the cutout"
+COMPOSITE_PICTURE = "colour composite"
 
 
-def display_settings(model_names=()):
+def display_settings(model_names=(), filter_names=()):
     """Sidebar panel "Display"; returns the settings as a dict."""
     sidebar = st.sidebar
     sidebar.subheader("Display")
+    pictures = [CUTOUT_PICTURE]
+    if len(filter_names) > 1:
+        pictures += list(filter_names)
+    if len(filter_names) >= 3:
+        pictures.append(COMPOSITE_PICTURE)
+    picture = sidebar.selectbox("Picture", pictures, key="lv_picture",
+                                help="One filter, resampled onto the cutout's pixels, or a colour "
+                                     "composite of the bluest, a middle and the reddest filter; "
+                                     "knots stay at their sky positions.")
     left, right = sidebar.columns(2)
     stretch = left.selectbox("Stretch", STRETCH_CHOICES, key="lv_stretch")
     limits_name = right.selectbox("Limits", list(LIMIT_CHOICES), key="lv_limits")
@@ -49,8 +60,8 @@ def display_settings(model_names=()):
                               "mu_overlay", help=OVERLAY_ONLY_REASON)
     if overlay:
         sidebar.caption(OVERLAY_ONLY_REASON)
-    return dict(stretch=stretch, limits=LIMIT_CHOICES[limits_name], cmap=cmap, width=int(width),
-                show_curves=show_curves, show_contours=show_contours,
+    return dict(picture=picture, stretch=stretch, limits=LIMIT_CHOICES[limits_name], cmap=cmap,
+                width=int(width), show_curves=show_curves, show_contours=show_contours,
                 contour_model=contour_model, overlay=overlay[-1] if overlay else None)
 
 
@@ -127,9 +138,26 @@ def _cached_overlay(sha256, name, _content):
     return read_magnification_map(buffer)
 
 
+@st.cache_resource(max_entries=6, show_spinner=False)
+def _picture_data(scene_key, picture, _scene, _filters):
+    """The cutout, one filter on the cutout's pixels, or a colour composite (display only)."""
+    from ..composite import band_on_grid, colour_composite
+
+    cutout = _scene.cutout
+    by_name = {image.band.name: image for image in _filters}
+    if picture in by_name:
+        return band_on_grid(by_name[picture], cutout.wcs, cutout.data.shape)
+    if picture == COMPOSITE_PICTURE and len(_filters) >= 3:
+        ordered = sorted(_filters, key=lambda image: image.band.pivot.value)
+        chosen = [ordered[0], ordered[len(ordered) // 2], ordered[-1]]
+        return colour_composite(chosen, cutout.wcs, cutout.data.shape)
+    return cutout.data
+
+
 @st.cache_resource(max_entries=24, show_spinner=False)
 def _base_layer(scene_key, viewport, stretch, limits, cmap, z_source, show_curves, show_contours,
-                contour_model, overlay_sha, _scene, _curves, _overlay=None):
+                contour_model, overlay_sha, picture, _scene, _curves, _overlay=None,
+                _filters=()):
     overlay = None
     if _overlay is not None:
         # |mu| of the user's map on the shown crop: drawn, never measured.
@@ -148,24 +176,27 @@ def _base_layer(scene_key, viewport, stretch, limits, cmap, z_source, show_curve
         for curve in _curves:
             drawn.append((str(curve.model), curve.kind, curve.to_pixels(_scene.cutout.wcs),
                           curve.closed))
-    return render_base_layer(_scene.cutout.data, viewport, stretch=stretch, limits=limits,
+    data = _picture_data(scene_key, picture, _scene, _filters)
+    return render_base_layer(data, viewport, stretch=stretch, limits=limits,
                              cmap=cmap, curves=drawn, model_names=[f.name for f in _scene.fields],
                              contours=contours,
                              contour_levels=CONTOUR_LEVELS if show_contours else (),
                              overlay=overlay, overlay_levels=CONTOUR_LEVELS)
 
 
-def sky_panel(state, scene, settings, z_source, results):
+def sky_panel(state, scene, settings, z_source, results, filters=()):
     """The picture and the marking controls; stores the viewport it drew with."""
     viewport = _view_controls(state, scene, settings)
     curves = results.curves
     key = (scene.key, viewport, settings["stretch"], settings["limits"], settings["cmap"],
            float(z_source), settings["show_curves"] and bool(curves), settings["show_contours"],
            settings["contour_model"] if settings["show_contours"] else 0,
-           settings["overlay"].sha256 if settings.get("overlay") else None)
+           settings["overlay"].sha256 if settings.get("overlay") else None,
+           settings.get("picture", CUTOUT_PICTURE))
     try:
         with st.spinner("Drawing the field..."):
-            base = _base_layer(*key, _scene=scene, _curves=curves, _overlay=settings.get("overlay"))
+            base = _base_layer(*key, _scene=scene, _curves=curves, _overlay=settings.get("overlay"),
+                               _filters=tuple(filters))
     except LensviewInputError as error:
         st.error(str(error))
         return viewport
