@@ -39,6 +39,7 @@ same bytes (no dates or checksums in the headers). `load_demo` reads them
 back through `lensview.fitsio` and `lensview.export`.
 """
 
+import json
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -66,6 +67,7 @@ __all__ = [
     "generate_demo",
     "load_demo",
     "lens_profiles",
+    "library_versions",
 ]
 
 #: Folder of the bundled demo files (next to the package).
@@ -81,6 +83,10 @@ MODEL_NAMES = ("isothermal", "NFW shear", "perturbed")
 CUTOUT_FILE = "lantern_arc_cutout.fits"
 CANDIDATE_FILE = "candidates.ecsv"
 README_FILE = "README.md"
+#: The numerical libraries' versions (and machine) that wrote the files: other
+#: releases round differently in the last bits, so only the same versions
+#: regenerate the files bit for bit.
+VERSIONS_FILE = "library_versions.json"
 
 _CENTRE = SkyCoord(211.9374 * u.deg, -7.4218 * u.deg)
 # The scenario plane: arcsec East and North of the cluster centre.
@@ -727,7 +733,7 @@ def generate_demo(directory=DEMO_DIRECTORY, seed=None, *, size_factor=1.0):
     Returns
     -------
     list of `pathlib.Path`
-        The files written: model maps, cutout, candidate list, README.
+        The files written: model maps, cutout, candidate list, README, library versions.
 
     Raises
     ------
@@ -774,7 +780,28 @@ def generate_demo(directory=DEMO_DIRECTORY, seed=None, *, size_factor=1.0):
     readme_path.write_text(_readme(fields, truth_values, candidates, size_factor, seed),
                            encoding="utf-8")
     written.append(readme_path)
+    versions_path = directory / VERSIONS_FILE
+    versions_path.write_text(json.dumps(library_versions(), indent=1) + "\n", encoding="utf-8")
+    written.append(versions_path)
     return written
+
+
+def library_versions():
+    """The versions of the libraries whose arithmetic the demo files depend on.
+
+    Returns
+    -------
+    dict
+        ``numpy``, ``scipy``, ``astropy`` versions and the machine
+        architecture; the same values regenerate the files bit for bit.
+    """
+    import platform
+
+    import astropy
+    import scipy
+
+    return {"numpy": np.__version__, "scipy": scipy.__version__,
+            "astropy": astropy.__version__, "machine": platform.machine()}
 
 
 def _render_cutout(finder, knots, compact_images, size_factor, seed):
@@ -1000,8 +1027,10 @@ from lensview.demo import load_demo
 cutout, fields, candidates = load_demo()   # fitsio.Cutout, 3 DeflectionFields, Table
 ```
 
-Regenerate them bit for bit (the bundled files use seed {seed}) with
-`lensview demo sample_images`, or `lensview.demo.generate_demo("sample_images")`.
+Regenerate them (the bundled files use seed {seed}) with
+`lensview demo sample_images`, or `lensview.demo.generate_demo("sample_images")`:
+bit for bit with the library versions in `{VERSIONS_FILE}`; other releases
+round differently, far below the noise and a micro-arcsecond.
 
 ## The scenario
 

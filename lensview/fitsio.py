@@ -297,7 +297,8 @@ def _open_fits(source):
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", AstropyUserWarning)
             hdul = fits.open(target, memmap=memmap, lazy_load_hdus=False)
-    except (OSError, ValueError, TypeError, EOFError, IndexError, KeyError) as error:
+    except (OSError, ValueError, TypeError, EOFError, IndexError, KeyError, OverflowError,
+            MemoryError) as error:
         raise _not_fits(label, error) from None
     try:
         yield hdul, label
@@ -393,7 +394,7 @@ def _hdu_data(hdu, label, index):
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", AstropyUserWarning)
             return hdu.data
-    except (OSError, ValueError, TypeError, EOFError) as error:
+    except (OSError, ValueError, TypeError, EOFError, OverflowError, MemoryError) as error:
         raise _not_fits(_where(label, index), error) from None
 
 
