@@ -4,9 +4,9 @@ Subcommands (each prints what it wrote; errors of input end with a message
 and exit status 2, never a traceback):
 
 ``lensview curves``   critical curves and caustics -> region table
-``lensview measure``  candidate measurements (per model and the spread)
+``lensview measure``  knot measurements (per model and the spread)
 ``lensview images``   predicted counter-images of one position
-``lensview pair``     mirrored pairs among marked candidates
+``lensview pair``     mirrored pairs among marked knots
 ``lensview figure``   publication figure of the cutout with overlays
 ``lensview session``  check a saved session against its input files
 ``lensview demo``     regenerate the invented demo scenario
@@ -113,6 +113,33 @@ def load_models(args):
     return fields
 
 
+def _add_knots(parser, help, required=False):
+    """``--knots FILE``; ``--candidates`` stays as a hidden alias of earlier releases."""
+    parser.add_argument("--knots", dest="candidates", metavar="FILE",
+                        help=help + (" (required)" if required else ""))
+    parser.add_argument("--candidates", dest="candidates", help=argparse.SUPPRESS)
+    parser.set_defaults(knots_required=required)
+
+
+def _add_pairing(parser):
+    """Pairing options, worded as on the page's tab "Counter-images and pairs"."""
+    parser.add_argument("--psf-fwhm", type=float, default=None, metavar="ARCSEC",
+                        help="PSF FWHM: knots whose predicted images lie closer than this merge "
+                             "into one unresolved image on the curve (default: not set)")
+    parser.add_argument("--tolerance", type=float, default=None, metavar="ARCSEC",
+                        help="pairing tolerance: the largest source-plane separation of two "
+                             "traced knots that can still be one source (default: from the "
+                             "model spread, at least 0.1 arcsec)")
+
+
+def _positive_or_none(value, option):
+    if value is None:
+        return None
+    if not (np.isfinite(value) and value > 0):
+        raise LensviewInputError(f"{option} {value} must be a positive number of arcsec.")
+    return value * u.arcsec
+
+
 def _progress(message):
     print(f"[lensview] {message}", file=sys.stderr, flush=True)
 
@@ -122,7 +149,7 @@ def _candidates(path, cutout_wcs=None):
 
     table = read_candidates(path, wcs=cutout_wcs)
     if len(table) == 0:
-        raise LensviewInputError(f"The candidate file {path} holds no candidates.")
+        raise LensviewInputError(f"The knot list {path} holds no knots; list at least one RA/Dec.")
     coords = SkyCoord(np.asarray(table["ra"], float) * u.deg, np.asarray(table["dec"], float) * u.deg)
     return coords, [str(label) for label in table["label"]], table
 
@@ -142,7 +169,7 @@ def cmd_curves(args):
     wcs = read_cutout(args.cutout).wcs if args.cutout else fields[0].wcs
     candidates = _candidates(args.candidates, wcs)[2] if args.candidates else None
     write_regions(args.output, curves, candidates, wcs=wcs)
-    extra = f" and {len(candidates)} candidate(s)" if candidates is not None else ""
+    extra = f" and {len(candidates)} knot(s)" if candidates is not None else ""
     print(f"wrote {len(curves)} curve(s){extra} to {args.output}")
 
 
@@ -166,7 +193,7 @@ def cmd_measure(args):
     if cutout is not None:
         for field in fields:
             field.require_overlap(cutout.wcs, cutout.data.shape)
-    _progress(f"measuring {len(coords)} candidate(s) against {len(fields)} model(s)")
+    _progress(f"measuring {len(coords)} knot(s) against {len(fields)} model(s)")
     table = measure_candidates(coords, fields, args.z_source, cosmology=_cosmology(args), labels=labels)
     if cutout is not None and args.aperture is not None:
         table = _add_photometry(table, coords, cutout, args)
@@ -229,8 +256,9 @@ def cmd_pair(args):
 
     coords, labels, _ = _candidates(args.candidates)
     fields = load_models(args)
-    tolerance = args.tolerance * u.arcsec if args.tolerance is not None else None
-    table = pair_counterparts(coords, fields, args.z_source, tolerance=tolerance)
+    tolerance = _positive_or_none(args.tolerance, "--tolerance")
+    psf = _positive_or_none(args.psf_fwhm, "--psf-fwhm")
+    table = pair_counterparts(coords, fields, args.z_source, tolerance=tolerance, psf_fwhm=psf)
     write_table(table, args.output)
     print(f"wrote {len(table)} proposed pair(s) to {args.output}")
 
@@ -246,13 +274,53 @@ def cmd_figure(args):
     curves = []
     for field in fields:
         curves += list(field.critical_curves(args.z_source))
-    candidates = None
+    candidates = pairs = counterimages = None
     if args.candidates:
-        _, _, candidates = _candidates(args.candidates, cutout.wcs)
+        coords, _, candidates = _candidates(args.candidates, cutout.wcs)
+    if (args.pairs or args.counterimages_of) and candidates is None:
+        raise LensviewInputError("--pairs and --counterimages-of need the knots: add --knots FILE.")
+    psf = _positive_or_none(args.psf_fwhm, "--psf-fwhm")
+    if args.pairs and len(coords) >= 2:
+        from .counterparts import pair_counterparts
+
+        found = pair_counterparts(coords, fields, args.z_source, psf_fwhm=psf,
+                                  tolerance=_positive_or_none(args.tolerance, "--tolerance"))
+        # As on the page: the consensus of several models, or the one model's pairs.
+        shown = "consensus" if len(fields) > 1 else fields[0].name
+        pairs = found[np.asarray(found["model"]) == shown]
+    if args.counterimages_of:
+        counterimages = _counterimages_of(args.counterimages_of, candidates, fields, args.z_source, psf)
+    limits = args.limits
+    try:
+        limits = float(limits)
+    except ValueError:
+        pass
     fig = render_field_figure(cutout.data, cutout.wcs, curves=curves, candidates=candidates,
-                              z_lens=args.z_lens, cosmology=_cosmology(args), stretch=args.stretch)
+                              pairs=pairs, counterimages=counterimages, z_lens=args.z_lens,
+                              cosmology=_cosmology(args), stretch=args.stretch, limits=limits,
+                              cmap=args.cmap)
     save_figure(fig, args.output, dpi=args.dpi)
     print(f"wrote {args.output}")
+
+
+def _counterimages_of(label, candidates, fields, z_source, psf):
+    from astropy.table import vstack
+
+    from .counterparts import predict_counterimages
+
+    labels = [str(v) for v in candidates["label"]]
+    if label not in labels:
+        raise LensviewInputError(
+            f"--counterimages-of {label!r} names no knot of the list; choose one of "
+            f"{', '.join(labels[:8])}{' ...' if len(labels) > 8 else ''}.")
+    row = candidates[labels.index(label)]
+    coord = SkyCoord(float(row["ra"]) * u.deg, float(row["dec"]) * u.deg)
+    tables = []
+    for field in fields:
+        images = predict_counterimages(coord, field, z_source, psf_fwhm=psf)
+        images["model"] = field.name
+        tables.append(images[~np.asarray(images["is_input"], bool)])
+    return vstack(tables, metadata_conflicts="silent")
 
 
 def cmd_session(args):
@@ -263,13 +331,13 @@ def cmd_session(args):
     statuses = check_session_files(session, supplied)
     for status in statuses:
         print(str(status))
-    print(f"{len(session.candidates)} candidate(s); z_lens = {session.z_lens}, "
+    print(f"{len(session.candidates)} knot(s); z_lens = {session.z_lens}, "
           f"z_source = {session.z_source}")
     if args.candidates_out:
         from .export import write_table
 
         write_table(session.candidate_table(), args.candidates_out)
-        print(f"wrote the candidates to {args.candidates_out}")
+        print(f"wrote the knots to {args.candidates_out}")
     bad = [s for s in statuses if not s.ok]
     if bad:
         raise LensviewInputError(
@@ -303,14 +371,14 @@ def build_parser():
     _add_models(p)
     p.add_argument("--cutout", help="FITS cutout whose pixel frame the .fits region table uses")
     p.add_argument("--caustics", action="store_true", help="also write the caustics")
-    p.add_argument("--candidates", help="candidate list to add as points (label, pair_id kept)")
+    _add_knots(p, "knot list to add as points (label, pair_id kept)")
     p.add_argument("-o", "--output", required=True, help="output .fits, .ecsv or .vot")
     p.set_defaults(run=cmd_curves)
 
-    p = sub.add_parser("measure", help="offsets, magnification and parity of candidates")
+    p = sub.add_parser("measure", help="offsets, magnification and parity of knots")
     _add_models(p)
-    p.add_argument("--candidates", required=True,
-                   help="CSV/ECSV/VOTable with RA/Dec columns (or x/y pixels with --cutout)")
+    _add_knots(p, "knot list: CSV/ECSV/VOTable with RA/Dec columns (or x/y pixels with --cutout)",
+               required=True)
     p.add_argument("--cutout", help="FITS cutout (for pixel positions and photometry)")
     p.add_argument("--aperture", type=float, default=None, metavar="ARCSEC",
                    help="aperture radius for photometry on the cutout")
@@ -324,23 +392,41 @@ def build_parser():
     p.add_argument("--ra", type=float, required=True, help="RA of the image (deg)")
     p.add_argument("--dec", type=float, required=True, help="Dec of the image (deg)")
     p.add_argument("--psf-fwhm", type=float, default=None, metavar="ARCSEC",
-                   help="resolution, to flag images that merge into one")
+                   help="PSF FWHM: predicted images closer than this merge into one unresolved "
+                        "image on the curve (default: not set)")
     p.add_argument("-o", "--output", required=True, help="output .ecsv, .csv or .vot")
     p.set_defaults(run=cmd_images)
 
-    p = sub.add_parser("pair", help="propose mirrored pairs among candidates")
+    p = sub.add_parser("pair", help="propose mirrored pairs among knots",
+                       description="Propose mirrored pairs among knots. Each pair's score is "
+                                   "a chi-square-like sum (0 is a perfect match, lower is "
+                                   "better) of the source-plane separation over the tolerance, "
+                                   "the midpoint's distance from the critical curve and a "
+                                   "penalty when no curve lies between the images; the gate "
+                                   "keeps opposite-parity pairs scoring at most 9.")
     _add_models(p)
-    p.add_argument("--candidates", required=True, help="CSV/ECSV/VOTable with RA/Dec columns")
-    p.add_argument("--tolerance", type=float, default=None, metavar="ARCSEC",
-                   help="source-plane match tolerance (default 0.1 arcsec or the model spread)")
+    _add_knots(p, "knot list: CSV/ECSV/VOTable with RA/Dec columns", required=True)
+    _add_pairing(p)
     p.add_argument("-o", "--output", required=True, help="output .ecsv, .csv or .vot")
     p.set_defaults(run=cmd_pair)
 
-    p = sub.add_parser("figure", help="figure of the cutout with curves and candidates")
+    p = sub.add_parser("figure", help="figure of the cutout with curves, knots, pairs and "
+                                      "counter-images")
     _add_models(p)
     p.add_argument("--cutout", required=True, help="FITS cutout")
-    p.add_argument("--candidates", help="candidate list to mark")
+    _add_knots(p, "knot list to mark")
+    p.add_argument("--pairs", action="store_true",
+                   help="link the proposed mirrored pairs (the models' consensus, as on the page)")
+    p.add_argument("--counterimages-of", metavar="LABEL",
+                   help="draw the predicted counter-images of this knot in every model")
+    _add_pairing(p)
     p.add_argument("--stretch", default="asinh", choices=["linear", "sqrt", "log", "asinh"])
+    p.add_argument("--limits", default="zscale", metavar="zscale|minmax|PERCENT",
+                   help="display limits: 'zscale' (a robust range around the sky level), "
+                        "'minmax', or the central PERCENT of the pixel values")
+    p.add_argument("--cmap", default="gray_r", metavar="NAME",
+                   help="matplotlib colour map (the page offers gray_r, gray, magma, cividis, "
+                        "viridis, inferno, bone)")
     p.add_argument("--dpi", type=int, default=300)
     p.add_argument("-o", "--output", required=True, help="output .png or .pdf")
     p.set_defaults(run=cmd_figure)
@@ -348,7 +434,9 @@ def build_parser():
     p = sub.add_parser("session", help="check a saved session against its input files")
     p.add_argument("session", help="session file (.json) saved by the app")
     p.add_argument("files", nargs="*", help="the cutout and model files to check")
-    p.add_argument("--candidates-out", help="also write the session's candidates (.ecsv/.csv/.vot)")
+    p.add_argument("--knots-out", dest="candidates_out",
+                   help="also write the session's knots (.ecsv/.csv/.vot)")
+    p.add_argument("--candidates-out", dest="candidates_out", help=argparse.SUPPRESS)
     p.set_defaults(run=cmd_session)
 
     p = sub.add_parser("demo", help="regenerate the invented demo scenario")
@@ -362,6 +450,8 @@ def main(argv=None):
     """Entry point of the ``lensview`` command; returns the exit status."""
     parser = build_parser()
     args = parser.parse_args(argv)
+    if getattr(args, "knots_required", False) and args.candidates is None:
+        parser.error(f"the following arguments are required: --knots (lensview {args.command})")
     try:
         args.run(args)
     except LensviewInputError as error:

@@ -309,7 +309,7 @@ def test_mirrored_clump_straddles_the_curve_with_its_midpoint_on_it(scenario, tr
     # Mirrored images have opposite parity and lie on either side of the curve
     # (Schneider, Ehlers & Falco 1992, ch. 6).
     assert set(table["parity"]) == {1, -1}
-    assert set(table["side"]) == {"inside", "outside"}
+    assert set(table["inside_or_outside"]) == {"inside", "outside"}
     separation = pair[0].separation(pair[1]).to_value(u.arcsec)
     assert separation > 3 * cutout.header["PSF_FWHM"]  # resolved
     traced = truth.ray_trace(pair, demo.Z_SOURCE)

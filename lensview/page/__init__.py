@@ -11,7 +11,7 @@ library's numbers once per rerun. No physics lives here.
 __all__ = ["main"]
 
 TITLE = "lensview"
-TABS = ("Measurements", "Counter-images and pairs", "Source plane", "Take away and restore")
+TABS = ("Measurements", "Counter-images and pairs", "Source plane", "Download and restore")
 
 
 def main():

@@ -30,7 +30,11 @@ def display_settings(model_names=()):
     sidebar.subheader("Display")
     left, right = sidebar.columns(2)
     stretch = left.selectbox("Stretch", STRETCH_CHOICES, key="lv_stretch")
-    limits_name = right.selectbox("Limits", list(LIMIT_CHOICES), key="lv_limits")
+    limits_name = right.selectbox(
+        "Limits", list(LIMIT_CHOICES), key="lv_limits",
+        help="Pixel values shown from the colour map's one end to the other: zscale picks a "
+             "robust range around the sky level; a percentage keeps that central share of the "
+             "pixel values; min to max shows all of them.")
     left, right = sidebar.columns(2)
     cmap = left.selectbox("Colour map", COLOUR_MAPS, key="lv_cmap")
     width = right.selectbox("Picture detail (px)", WIDTHS, index=1, key="lv_width",

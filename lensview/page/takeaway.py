@@ -1,4 +1,4 @@
-"""Main panel "Take away and restore": downloads, and bringing a session or catalogue back.
+"""Main panel "Download and restore": downloads, and bringing a session or catalogue back.
 
 Downloads are produced on demand (the button's data is a callable), by the
 export functions of `lensview.export` and `lensview.figures`, written to a
@@ -17,7 +17,7 @@ from ..errors import LensviewInputError
 from . import state as page_state
 from .sky import LIMIT_CHOICES
 
-__all__ = ["download_producers", "takeaway_panel", "session_document"]
+__all__ = ["download_producers", "takeaway_panel", "session_document", "table_unavailable"]
 
 REGION_FORMATS = {"FITS region table (.fits)": ".fits", "ECSV vertex table (.ecsv)": ".ecsv",
                   "VOTable vertex table (.vot)": ".vot"}
@@ -120,6 +120,23 @@ def download_producers(state, scene, z_source, results, settings, viewport, *,
     }
 
 
+def table_unavailable(results, table_choice):
+    """Why the chosen table cannot be downloaded yet, or None when it can.
+
+    A download is a valid file of its kind or is not offered: the button is
+    disabled with this reason instead of writing a file that holds an error.
+    """
+    if table_choice in ("per model", "spread") and (
+            results.table is None or (table_choice == "spread" and results.spread is None)):
+        return "Mark at least one knot on the picture: the measurement tables list the knots."
+    if table_choice == "pairs" and results.pairs is None:
+        return "Pairs need at least two marked knots; mark more knots on the picture."
+    if table_choice == "counter-images" and results.counterimages is None:
+        return ("Counter-images are predicted for a marked knot; mark one on the picture "
+                "(tab Counter-images and pairs chooses which).")
+    return None
+
+
 def _other_images(images):
     if images is None or not len(images):
         return None
@@ -146,10 +163,14 @@ def takeaway_panel(state, scene, z_source, results, settings, viewport):
         include_caustics=include_caustics)
     state[DOWNLOADS] = {name: produce for name, (produce, _) in producers.items()}
     labels = ("Download regions", "Download table", "Download figure", "Download session")
+    missing = table_unavailable(results, table_choice)
     for column, label, (name, (produce, mime)) in zip(cols, labels, producers.items()):
+        blocked = missing if label == "Download table" else None
         column.download_button(label, data=_safe(produce), file_name=name, mime=mime,
                                key=f"lv_dl_{label.split()[-1]}", on_click="ignore",
-                               disabled=label == "Download table" and results.table is None)
+                               disabled=blocked is not None, help=blocked)
+        if blocked:
+            column.caption(blocked)
     st.divider()
     st.markdown("**Restore**")
     left, right = st.columns(2)
