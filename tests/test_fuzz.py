@@ -7,10 +7,10 @@ encodings, session JSON mutations) and reads it back. Allowed outcomes:
 * ``LensviewInputError`` with a non-empty message;
 * a result, which must not carry a silently wrong number:
   - a cutout or map read from a truncated or header-edited file holds exactly
-    the original pixels (the bytes it read are the original ones), or its
-    header changed the meaning on purpose (scaling keywords) and then the
-    numbers follow the FITS rule physical = BZERO + BSCALE * stored (FITS
-    standard 4.0, sec. 5.3);
+    the original pixels; when the edit shrank an axis (NAXISn), exactly the
+    first stored values in file order (the part read); scaling keywords
+    (BSCALE, BZERO, BLANK) change the numbers on purpose (FITS standard 4.0,
+    sec. 5.3) and are only required to end in a result or an input error;
   - NaN/inf pixels stay non-finite in a cutout or a map (masked parts of a
     model are NaN by design, see DEVELOPERS.md), never replaced by numbers,
     and every other pixel keeps its value; a map with no finite value is
@@ -27,7 +27,9 @@ by the last test (run ``pytest -s tests/test_fuzz.py`` to see them).
 
 import io
 import json
+import signal
 from collections import Counter
+from contextlib import contextmanager
 
 import numpy as np
 import pytest
@@ -123,32 +125,69 @@ def _same_pixels(result, original):
     return result.shape == original.shape and np.array_equal(result, original, equal_nan=True)
 
 
+@contextmanager
+def _no_hang(seconds=20):
+    """Fail instead of waiting when a reader loops (some releases did on absurd headers)."""
+    def stop(*_):
+        raise AssertionError(f"the reader ran for more than {seconds} s: a hang")
+
+    previous = signal.signal(signal.SIGALRM, stop)
+    signal.alarm(seconds)
+    try:
+        yield
+    finally:
+        signal.alarm(0)
+        signal.signal(signal.SIGALRM, previous)
+
+
 def _read(kind, content):
-    if kind == "cutout":
-        return read_cutout(content)
-    return read_deflection(content, units=None)
+    with _no_hang():
+        if kind == "cutout":
+            return read_cutout(content)
+        return read_deflection(content, units=None)
 
 
-def _check_result(kind, result, edited_meaning):
-    """No silently wrong number in a result read from a damaged file."""
+def _leading_values(got, original):
+    """A smaller axis claim reads the first values of the same bytes, in file order."""
+    flat = np.asarray(got).ravel()
+    return flat.size <= original.size and np.array_equal(flat, original.ravel()[:flat.size],
+                                                         equal_nan=True)
+
+
+def _check_result(kind, result, edited_meaning, reshaped=False):
+    """No silently wrong number in a result read from a damaged file.
+
+    ``reshaped``: the edit shrank an axis, so the header announces fewer values;
+    the result must then hold the first values of the original bytes (the part
+    read), nothing else.
+    """
     if kind == "cutout":
         data = np.asarray(result.data)
-        if not edited_meaning:
+        if reshaped:
+            assert _leading_values(data, IMAGE), "a cutout with a smaller axis read other numbers"
+        elif not edited_meaning:
             assert _same_pixels(data, IMAGE), "a damaged cutout was read with other pixels"
-    else:
+    elif not edited_meaning:
+        stored = np.stack([ALPHA_X, ALPHA_Y])
         for got, original in ((result.alpha_x, ALPHA_X), (result.alpha_y, ALPHA_Y)):
-            if not edited_meaning:
+            if reshaped:
+                # Each plane of a re-shaped cube is a run of the stored values.
+                flat, values = np.asarray(got).ravel(), stored.ravel()
+                assert any(np.array_equal(flat, values[k:k + flat.size])
+                           for k in range(0, values.size - flat.size + 1)), \
+                    "a map with a smaller axis read other numbers"
+            else:
                 assert _same_pixels(np.asarray(got), original), "a damaged map read other numbers"
 
 
-def _outcome(kind, content, edited_meaning=False):
+def _outcome(kind, content, edited_meaning=False, reshaped=False):
     try:
         result = _read(kind, content)
     except LensviewInputError as error:
         assert str(error).strip(), "an input error without a message"
         _record(kind, "input error")
         return None
-    _check_result(kind, result, edited_meaning)
+    _check_result(kind, result, edited_meaning, reshaped)
     _record(kind, "result")
     return result
 
@@ -159,10 +198,10 @@ def _outcome(kind, content, edited_meaning=False):
        value=st.sampled_from(VALUES))
 def test_header_edits(kind, keyword, value):
     content = _edit_card(FILES[kind], keyword, value)
-    # Scaling keywords change the numbers on purpose (FITS 4.0 sec. 5.3); so do
-    # the axis lengths a reader could honour by reshaping the same bytes.
+    # Scaling keywords change the numbers on purpose (FITS 4.0 sec. 5.3); a smaller
+    # axis length is honoured by reading fewer of the same bytes.
     meaning = keyword in ("BSCALE", "BZERO", "BLANK", "BUNIT")
-    _outcome(kind, content, edited_meaning=meaning)
+    _outcome(kind, content, edited_meaning=meaning, reshaped=keyword.startswith("NAXIS"))
 
 
 @FUZZ
@@ -223,8 +262,10 @@ CELL = st.one_of(st.floats(allow_nan=True, allow_infinity=True), st.integers(-10
 
 
 @FUZZ
-@given(names=st.lists(st.sampled_from(COLUMN_NAMES), min_size=1, max_size=5),
-       rows=st.lists(st.lists(CELL, min_size=5, max_size=5), max_size=6),
+@given(names=st.tuples(st.booleans(), st.lists(st.sampled_from(COLUMN_NAMES), min_size=1, max_size=5))
+       .map(lambda t: (["ra", "dec"] if t[0] else []) + t[1]),
+       rows=st.lists(st.lists(st.one_of(CELL, st.floats(0, 90)), min_size=7, max_size=7),
+                     max_size=6),
        encoding=st.sampled_from(["utf-8", "utf-16", "latin-1", "utf-8-sig", "cp1252"]),
        suffix=st.sampled_from([".csv", ".ecsv", ".vot"]))
 def test_catalogues_with_random_columns_and_encodings(names, rows, encoding, suffix):
@@ -239,7 +280,8 @@ def test_catalogues_with_random_columns_and_encodings(names, rows, encoding, suf
     upload = io.BytesIO(content)
     upload.name = "knots" + suffix
     try:
-        table = read_candidates(upload, wcs=_wcs())
+        with _no_hang():
+            table = read_candidates(upload, wcs=_wcs())
     except LensviewInputError as error:
         assert str(error).strip()
         _record("catalogue", "input error")
@@ -345,7 +387,8 @@ def test_session_mutations(mutations, special):
     if special is not None:
         text = text.replace("150.0001", special, 1)
     try:
-        session = load_session(text)
+        with _no_hang():
+            session = load_session(text)
     except LensviewInputError as error:
         assert str(error).strip()
         _record("session", "input error")
@@ -366,6 +409,60 @@ def test_session_random_bytes(content):
         _record("session bytes", "input error")
         return
     _record("session bytes", "result")
+
+
+# ---------------------------------------------------------------------------- the page
+def test_knots_on_the_page_survive_every_failed_upload():
+    """Damaged files of each kind into every uploader: a message each time, the knots kept."""
+    from pathlib import Path
+
+    from streamlit.testing.v1 import AppTest
+
+    from lensview.page import state as page_state
+
+    app = AppTest.from_file(str(Path(__file__).resolve().parents[1] / "app.py"), default_timeout=240)
+    app.run()
+    app.button(key="lv_mark_demo").click()
+    app.run()
+    marked = [(m["ra"], m["dec"], m["label"]) for m in app.session_state[page_state.CANDIDATES]]
+    assert len(marked) > 2
+    bad_fits = [
+        ("cut.fits", FILES["cutout"][: len(FILES["cutout"]) // 2]),
+        ("huge.fits", _edit_card(FILES["cutout"], "NAXIS1", "2147483647")),
+        ("bitpix.fits", _edit_card(FILES["cube"], "BITPIX", "16")),
+        ("noise.fits", bytes(range(256)) * 12),
+    ]
+    errors = 0
+    for name, content in bad_fits:
+        # The knot list and session uploaders on the tab "Download and restore".
+        app.file_uploader(key="lv_up_catalogue").set_value((name, content, "application/fits"))
+        app.run()
+        app.button(key="lv_cat_replace").click()
+        app.run()
+        errors += any(e.value for e in app.error)
+        app.file_uploader(key="lv_up_session").set_value(
+            ("s.json", content[:300], "application/json"))
+        app.run()
+        app.button(key="lv_restore").click()
+        app.run()
+        errors += any(e.value for e in app.error)
+        now = [(m["ra"], m["dec"], m["label"]) for m in app.session_state[page_state.CANDIDATES]]
+        assert now == marked, name
+    # And as the cutout and a model of "My files".
+    app.radio(key="lv_source").set_value("My files")
+    app.run()
+    for name, content in bad_fits:
+        for slot in ("cutout", "model_0"):
+            widget = next(w for w in app.file_uploader if w.key.startswith(f"lv_up_{slot}_"))
+            widget.set_value((name, content, "application/fits") if slot == "cutout"
+                             else [(name, content, "application/fits")])
+            app.run()
+            assert not app.exception, app.exception[0].message if app.exception else ""
+            errors += any(e.value for e in app.error)
+            now = [(m["ra"], m["dec"], m["label"]) for m in app.session_state[page_state.CANDIDATES]]
+            assert now == marked, (name, slot)
+    OUTCOMES[("page upload", "input error")] += errors
+    assert errors == 4 * len(bad_fits)
 
 
 # ---------------------------------------------------------------------------- summary
