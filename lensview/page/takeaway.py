@@ -15,6 +15,7 @@ from astropy.table import Table
 
 from ..errors import LensviewInputError
 from . import state as page_state
+from .inputs import upload_limit_mb
 from .sky import LIMIT_CHOICES
 
 __all__ = ["download_producers", "takeaway_panel", "session_document", "table_unavailable"]
@@ -163,9 +164,12 @@ def takeaway_panel(state, scene, z_source, results, settings, viewport):
         include_caustics=include_caustics)
     state[DOWNLOADS] = {name: produce for name, (produce, _) in producers.items()}
     labels = ("Download regions", "Download table", "Download figure", "Download session")
-    missing = table_unavailable(results, table_choice)
+    missing = {"Download table": table_unavailable(results, table_choice)}
+    if not results.curves and not page_state.candidates(state):
+        missing["Download regions"] = ("No critical curve at this source redshift and no knot "
+                                       "marked: there is nothing to list yet.")
     for column, label, (name, (produce, mime)) in zip(cols, labels, producers.items()):
-        blocked = missing if label == "Download table" else None
+        blocked = missing.get(label)
         column.download_button(label, data=_safe(produce), file_name=name, mime=mime,
                                key=f"lv_dl_{label.split()[-1]}", on_click="ignore",
                                disabled=blocked is not None, help=blocked)
@@ -175,12 +179,14 @@ def takeaway_panel(state, scene, z_source, results, settings, viewport):
     st.markdown("**Restore**")
     left, right = st.columns(2)
     with left:
-        st.file_uploader("Session file (.json)", type=["json"], key="lv_up_session")
+        limit = f"Up to {upload_limit_mb()} MB per file."
+        st.file_uploader("Session file (.json)", type=["json"], key="lv_up_session", help=limit)
         st.button("Restore this session", key="lv_restore", on_click=_restore_session,
                   args=(state, scene))
     with right:
         st.file_uploader("Knot list: region file or catalogue with RA/Dec",
-                         type=["csv", "ecsv", "vot", "xml", "fits"], key="lv_up_catalogue")
+                         type=["csv", "ecsv", "vot", "xml", "fits"], key="lv_up_catalogue",
+                         help=limit)
         a, b = st.columns(2)
         a.button("Add to my knots", key="lv_cat_add", on_click=_load_catalogue,
                  args=(state, scene, True))
