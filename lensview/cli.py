@@ -4,9 +4,9 @@ Subcommands (each prints what it wrote; errors of input end with a message
 and exit status 2, never a traceback):
 
 ``lensview curves``   critical curves and caustics -> region table
-``lensview measure``  candidate measurements (per model and the spread)
+``lensview measure``  knot measurements (per model and the spread)
 ``lensview images``   predicted counter-images of one position
-``lensview pair``     mirrored pairs among marked candidates
+``lensview pair``     mirrored pairs among marked knots
 ``lensview figure``   publication figure of the cutout with overlays
 ``lensview nature``   colours, temperature, delensed luminosity and a verdict per knot
 ``lensview session``  check a saved session against its input files
@@ -58,12 +58,17 @@ def _add_models(parser):
                             "one value applies to all")
     group.add_argument("--z-lens", type=float, required=True, help="lens redshift")
     group.add_argument("--z-source", type=float, required=True, help="source redshift")
-    group.add_argument("--h0", type=float, default=None,
-                       help=f"Hubble constant (km/s/Mpc, {H0_RANGE[0]:g} to {H0_RANGE[1]:g}) for a flat LCDM "
-                            "cosmology; default Planck18")
-    group.add_argument("--om0", type=float, default=None,
-                       help=f"matter density (above {OM0_RANGE[0]:g}, at most {OM0_RANGE[1]:g}) for a flat "
-                            "LCDM cosmology (with --h0)")
+    _add_cosmology(group)
+
+
+def _add_cosmology(parser):
+    """``--h0`` and ``--om0``, with the ranges the page accepts too."""
+    parser.add_argument("--h0", type=float, default=None,
+                        help=f"Hubble constant (km/s/Mpc, {H0_RANGE[0]:g} to {H0_RANGE[1]:g}) for "
+                             "a flat LCDM cosmology; default Planck18")
+    parser.add_argument("--om0", type=float, default=None,
+                        help=f"matter density (above {OM0_RANGE[0]:g}, at most {OM0_RANGE[1]:g}) "
+                             "for a flat LCDM cosmology (with --h0)")
 
 
 _UNIT_NORMALISATION = "unit"
@@ -140,6 +145,33 @@ def load_models(args):
     return fields
 
 
+def _add_knots(parser, help, required=False):
+    """``--knots FILE``; ``--candidates`` stays as a hidden alias of earlier releases."""
+    parser.add_argument("--knots", dest="candidates", metavar="FILE",
+                        help=help + (" (required)" if required else ""))
+    parser.add_argument("--candidates", dest="candidates", help=argparse.SUPPRESS)
+    parser.set_defaults(knots_required=required)
+
+
+def _add_pairing(parser):
+    """Pairing options, worded as on the page's tab "Counter-images and pairs"."""
+    parser.add_argument("--psf-fwhm", type=float, default=None, metavar="ARCSEC",
+                        help="PSF FWHM: knots whose predicted images lie closer than this merge "
+                             "into one unresolved image on the curve (default: not set)")
+    parser.add_argument("--tolerance", type=float, default=None, metavar="ARCSEC",
+                        help="pairing tolerance: the largest source-plane separation of two "
+                             "traced knots that can still be one source (default: from the "
+                             "model spread, at least 0.1 arcsec)")
+
+
+def _positive_or_none(value, option):
+    if value is None:
+        return None
+    if not (np.isfinite(value) and value > 0):
+        raise LensviewInputError(f"{option} {value} must be a positive number of arcsec.")
+    return value * u.arcsec
+
+
 def _progress(message):
     print(f"[lensview] {message}", file=sys.stderr, flush=True)
 
@@ -149,7 +181,7 @@ def _candidates(path, cutout_wcs=None):
 
     table = read_candidates(path, wcs=cutout_wcs)
     if len(table) == 0:
-        raise LensviewInputError(f"The candidate file {path} holds no candidates.")
+        raise LensviewInputError(f"The knot list {path} holds no knots; list at least one RA/Dec.")
     coords = SkyCoord(np.asarray(table["ra"], float) * u.deg, np.asarray(table["dec"], float) * u.deg)
     return coords, [str(label) for label in table["label"]], table
 
@@ -169,7 +201,7 @@ def cmd_curves(args):
     wcs = read_cutout(args.cutout).wcs if args.cutout else fields[0].wcs
     candidates = _candidates(args.candidates, wcs)[2] if args.candidates else None
     write_regions(args.output, curves, candidates, wcs=wcs)
-    extra = f" and {len(candidates)} candidate(s)" if candidates is not None else ""
+    extra = f" and {len(candidates)} knot(s)" if candidates is not None else ""
     print(f"wrote {len(curves)} curve(s){extra} to {args.output}")
 
 
@@ -193,7 +225,7 @@ def cmd_measure(args):
     if cutout is not None:
         for field in fields:
             field.require_overlap(cutout.wcs, cutout.data.shape)
-    _progress(f"measuring {len(coords)} candidate(s) against {len(fields)} model(s)")
+    _progress(f"measuring {len(coords)} knot(s) against {len(fields)} model(s)")
     table = measure_candidates(coords, fields, args.z_source, cosmology=_cosmology(args), labels=labels)
     if cutout is not None and args.aperture is not None:
         table = _add_photometry(table, coords, cutout, args)
@@ -262,8 +294,9 @@ def cmd_pair(args):
 
     coords, labels, _ = _candidates(args.candidates)
     fields = load_models(args)
-    tolerance = args.tolerance * u.arcsec if args.tolerance is not None else None
-    table = pair_counterparts(coords, fields, args.z_source, tolerance=tolerance)
+    tolerance = _positive_or_none(args.tolerance, "--tolerance")
+    psf = _positive_or_none(args.psf_fwhm, "--psf-fwhm")
+    table = pair_counterparts(coords, fields, args.z_source, tolerance=tolerance, psf_fwhm=psf)
     write_table(table, args.output)
     print(f"wrote {len(table)} proposed pair(s) to {args.output}")
     for row in table:
@@ -285,9 +318,27 @@ def cmd_figure(args):
     curves = []
     for field in fields:
         curves += list(field.critical_curves(args.z_source))
-    candidates = None
+    candidates = pairs = counterimages = None
     if args.candidates:
-        _, _, candidates = _candidates(args.candidates, cutout.wcs)
+        coords, _, candidates = _candidates(args.candidates, cutout.wcs)
+    if (args.pairs or args.counterimages_of) and candidates is None:
+        raise LensviewInputError("--pairs and --counterimages-of need the knots: add --knots FILE.")
+    psf = _positive_or_none(args.psf_fwhm, "--psf-fwhm")
+    if args.pairs and len(coords) >= 2:
+        from .counterparts import pair_counterparts
+
+        found = pair_counterparts(coords, fields, args.z_source, psf_fwhm=psf,
+                                  tolerance=_positive_or_none(args.tolerance, "--tolerance"))
+        # As on the page: the consensus of several models, or the one model's pairs.
+        shown = "consensus" if len(fields) > 1 else fields[0].name
+        pairs = found[np.asarray(found["model"]) == shown]
+    if args.counterimages_of:
+        counterimages = _counterimages_of(args.counterimages_of, candidates, fields, args.z_source, psf)
+    limits = args.limits
+    try:
+        limits = float(limits)
+    except ValueError:
+        pass
     overlay = None
     if args.magnification_map:
         from .io.mapfiles import OVERLAY_ONLY_REASON, read_magnification_map
@@ -295,10 +346,31 @@ def cmd_figure(args):
         overlay = read_magnification_map(args.magnification_map)
         _progress(OVERLAY_ONLY_REASON)
     fig = render_field_figure(cutout.data, cutout.wcs, curves=curves, candidates=candidates,
-                              z_lens=args.z_lens, cosmology=_cosmology(args), stretch=args.stretch,
-                              magnification_map=overlay)
+                              pairs=pairs, counterimages=counterimages, z_lens=args.z_lens,
+                              cosmology=_cosmology(args), stretch=args.stretch, limits=limits,
+                              cmap=args.cmap, magnification_map=overlay)
     save_figure(fig, args.output, dpi=args.dpi)
     print(f"wrote {args.output}")
+
+
+def _counterimages_of(label, candidates, fields, z_source, psf):
+    from astropy.table import vstack
+
+    from .counterparts import predict_counterimages
+
+    labels = [str(v) for v in candidates["label"]]
+    if label not in labels:
+        raise LensviewInputError(
+            f"--counterimages-of {label!r} names no knot of the list; choose one of "
+            f"{', '.join(labels[:8])}{' ...' if len(labels) > 8 else ''}.")
+    row = candidates[labels.index(label)]
+    coord = SkyCoord(float(row["ra"]) * u.deg, float(row["dec"]) * u.deg)
+    tables = []
+    for field in fields:
+        images = predict_counterimages(coord, field, z_source, psf_fwhm=psf)
+        images["model"] = field.name
+        tables.append(images[~np.asarray(images["is_input"], bool)])
+    return vstack(tables, metadata_conflicts="silent")
 
 
 _BAND_KEYS = ("name", "zp", "pivot", "psf", "beta")
@@ -405,13 +477,13 @@ def cmd_session(args):
     statuses = check_session_files(session, supplied)
     for status in statuses:
         print(str(status))
-    print(f"{len(session.candidates)} candidate(s); z_lens = {session.z_lens}, "
+    print(f"{len(session.candidates)} knot(s); z_lens = {session.z_lens}, "
           f"z_source = {session.z_source}")
     if args.candidates_out:
         from .io import write_table
 
         write_table(session.candidate_table(), args.candidates_out)
-        print(f"wrote the candidates to {args.candidates_out}")
+        print(f"wrote the knots to {args.candidates_out}")
     bad = [s for s in statuses if not s.ok]
     if bad:
         raise LensviewInputError(
@@ -432,7 +504,7 @@ def cmd_posterior(args):
     from .ensemble import BrokenRealisationWarning, measure_ensemble
     from .io import write_table
 
-    coords, labels, _ = _candidates(args.knots)
+    coords, labels, _ = _candidates(args.candidates)
     z_norm = FROM_HEADER if args.z_norm is None else (
         None if args.z_norm == _UNIT_NORMALISATION else args.z_norm)
     cosmology = _cosmology(args)
@@ -515,14 +587,14 @@ def build_parser():
     _add_models(p)
     p.add_argument("--cutout", help="FITS cutout whose pixel frame the .fits region table uses")
     p.add_argument("--caustics", action="store_true", help="also write the caustics")
-    p.add_argument("--candidates", help="candidate list to add as points (label, pair_id kept)")
+    _add_knots(p, "knot list to add as points (label, pair_id kept)")
     p.add_argument("-o", "--output", required=True, help="output .fits, .ecsv or .vot")
     p.set_defaults(run=cmd_curves)
 
-    p = sub.add_parser("measure", help="offsets, magnification and parity of candidates")
+    p = sub.add_parser("measure", help="offsets, magnification and parity of knots")
     _add_models(p)
-    p.add_argument("--candidates", required=True,
-                   help="CSV/ECSV/VOTable with RA/Dec columns (or x/y pixels with --cutout)")
+    _add_knots(p, "knot list: CSV/ECSV/VOTable with RA/Dec columns (or x/y pixels with --cutout)",
+               required=True)
     p.add_argument("--cutout", help="FITS cutout (for pixel positions and photometry)")
     p.add_argument("--aperture", type=float, default=None, metavar="ARCSEC",
                    help="aperture radius for photometry on the cutout")
@@ -536,23 +608,41 @@ def build_parser():
     p.add_argument("--ra", type=float, required=True, help="RA of the image (deg)")
     p.add_argument("--dec", type=float, required=True, help="Dec of the image (deg)")
     p.add_argument("--psf-fwhm", type=float, default=None, metavar="ARCSEC",
-                   help="resolution, to flag images that merge into one")
+                   help="PSF FWHM: predicted images closer than this merge into one unresolved "
+                        "image on the curve (default: not set)")
     p.add_argument("-o", "--output", required=True, help="output .ecsv, .csv or .vot")
     p.set_defaults(run=cmd_images)
 
-    p = sub.add_parser("pair", help="propose mirrored pairs among candidates")
+    p = sub.add_parser("pair", help="propose mirrored pairs among knots",
+                       description="Propose mirrored pairs among knots. Each pair's score is "
+                                   "a chi-square-like sum (0 is a perfect match, lower is "
+                                   "better) of the source-plane separation over the tolerance, "
+                                   "the midpoint's distance from the critical curve and a "
+                                   "penalty when no curve lies between the images; the gate "
+                                   "keeps opposite-parity pairs scoring at most 9.")
     _add_models(p)
-    p.add_argument("--candidates", required=True, help="CSV/ECSV/VOTable with RA/Dec columns")
-    p.add_argument("--tolerance", type=float, default=None, metavar="ARCSEC",
-                   help="source-plane match tolerance (default 0.1 arcsec or the model spread)")
+    _add_knots(p, "knot list: CSV/ECSV/VOTable with RA/Dec columns", required=True)
+    _add_pairing(p)
     p.add_argument("-o", "--output", required=True, help="output .ecsv, .csv or .vot")
     p.set_defaults(run=cmd_pair)
 
-    p = sub.add_parser("figure", help="figure of the cutout with curves and candidates")
+    p = sub.add_parser("figure", help="figure of the cutout with curves, knots, pairs and "
+                                      "counter-images")
     _add_models(p)
     p.add_argument("--cutout", required=True, help="FITS cutout")
-    p.add_argument("--candidates", help="candidate list to mark")
+    _add_knots(p, "knot list to mark")
+    p.add_argument("--pairs", action="store_true",
+                   help="link the proposed mirrored pairs (the models' consensus, as on the page)")
+    p.add_argument("--counterimages-of", metavar="LABEL",
+                   help="draw the predicted counter-images of this knot in every model")
+    _add_pairing(p)
     p.add_argument("--stretch", default="asinh", choices=["linear", "sqrt", "log", "asinh"])
+    p.add_argument("--limits", default="zscale", metavar="zscale|minmax|PERCENT",
+                   help="display limits: 'zscale' (a robust range around the sky level), "
+                        "'minmax', or the central PERCENT of the pixel values")
+    p.add_argument("--cmap", default="gray_r", metavar="NAME",
+                   help="matplotlib colour map (the page offers gray_r, gray, magma, cividis, "
+                        "viridis, inferno, bone)")
     p.add_argument("--dpi", type=int, default=300)
     p.add_argument("--magnification-map", metavar="FILE",
                    help="a magnification map (FITS) drawn as |mu| = 3, 10, 30 contours only: it "
@@ -569,7 +659,7 @@ def build_parser():
                         "point), pivot= (micron, or with a unit), psf= (FWHM, arcsec) and beta= "
                         "(Moffat index of the PSF) where the header lacks them; repeat for each "
                         "filter")
-    p.add_argument("--candidates", required=True, help="CSV/ECSV/VOTable of the knots")
+    _add_knots(p, "knot list: CSV/ECSV/VOTable with RA/Dec columns", required=True)
     p.add_argument("--aperture", type=float, default=None, metavar="ARCSEC",
                    help="aperture radius (default 1.5 times the widest PSF FWHM)")
     p.add_argument("--dust", default="G23", choices=["G23", "F99", "CCM89"],
@@ -586,7 +676,9 @@ def build_parser():
     p = sub.add_parser("session", help="check a saved session against its input files")
     p.add_argument("session", help="session file (.json) saved by the app")
     p.add_argument("files", nargs="*", help="the cutout and model files to check")
-    p.add_argument("--candidates-out", help="also write the session's candidates (.ecsv/.csv/.vot)")
+    p.add_argument("--knots-out", dest="candidates_out",
+                   help="also write the session's knots (.ecsv/.csv/.vot)")
+    p.add_argument("--candidates-out", dest="candidates_out", help=argparse.SUPPRESS)
     p.set_defaults(run=cmd_session)
 
     p = sub.add_parser("posterior", help="distributions of knot measurements over many "
@@ -595,8 +687,7 @@ def build_parser():
                    help="folder or glob pattern of the realisations' FITS files: pairs named "
                         "*_alpha_x/*_alpha_y (or _x/_y, _defx/_defy), or one file each with two "
                         "image HDUs or a two-plane cube; repeat to add more")
-    p.add_argument("--knots", "--candidates", dest="knots", required=True, metavar="FILE",
-                   help="CSV/ECSV/VOTable of knots with RA/Dec columns")
+    _add_knots(p, "knot list: CSV/ECSV/VOTable with RA/Dec columns", required=True)
     p.add_argument("--z-lens", type=float, required=True, help="lens redshift")
     p.add_argument("--z-source", type=float, required=True, help="source redshift")
     p.add_argument("--units", choices=["arcsec", "pixel"], default=None,
@@ -604,10 +695,7 @@ def build_parser():
     p.add_argument("--z-norm", type=_normalisation, default=None, metavar="Z|unit",
                    help="redshift the maps were made for, or 'unit' (default: the files' Z_NORM "
                         "keyword, else unit)")
-    p.add_argument("--h0", type=float, default=None,
-                   help="Hubble constant (km/s/Mpc) for a flat LCDM cosmology; default Planck18")
-    p.add_argument("--om0", type=float, default=None,
-                   help="matter density for a flat LCDM cosmology (with --h0)")
+    _add_cosmology(p)
     p.add_argument("--percentiles", type=_percentile_list, default=[2.5, 16.0, 50.0, 84.0, 97.5],
                    metavar="P,P,...", help="percentiles to report (default 2.5,16,50,84,97.5)")
     p.add_argument("--mu-threshold", type=float, action="append", default=[], metavar="T",
@@ -631,6 +719,8 @@ def main(argv=None):
     """Entry point of the ``lensview`` command; returns the exit status."""
     parser = build_parser()
     args = parser.parse_args(argv)
+    if getattr(args, "knots_required", False) and args.candidates is None:
+        parser.error(f"the following arguments are required: --knots (lensview {args.command})")
     try:
         args.run(args)
     except LensviewInputError as error:

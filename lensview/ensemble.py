@@ -522,7 +522,7 @@ def summarize_ensemble(samples, *, percentiles=DEFAULT_PERCENTILES, mu_threshold
                 out[column].info.format = ".7f"
     parity = grid_of("parity", fill=0, dtype=int)
     side = np.full(shape, "", dtype=object)
-    side[row_of, column_of] = np.asarray(samples["side"]).astype(str)
+    side[row_of, column_of] = np.asarray(samples["inside_or_outside"]).astype(str)
     abs_mu = quantities["abs_mu"][0]
     out["fraction_odd_parity"] = _fraction(held & (parity == -1), n_held)
     out["fraction_inside_curve"] = _fraction(held & (side == "inside"), n_held)

@@ -8,7 +8,8 @@ with the caustics and the ray-traced candidates.
 
 Line styles: tangential curves solid, radial curves dashed; caustics are
 thinner, dotted (tangential) and dash-dotted (radial). One colour per model
-from `LENSVIEW_PALETTE`.
+from `LENSVIEW_PALETTE`. Curves, knots, counter-images and pair links are
+drawn in the styles of `lensview.style`, which the page's picture uses too.
 
 Figures are built on `matplotlib.figure.Figure` without pyplot, so no global
 state or interactive backend is involved.
@@ -30,29 +31,25 @@ from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
 
 from .errors import LensviewInputError
+from .style import (COUNTERIMAGE, CURVE_NAMES, CURVE_STYLES, KNOT, MODEL_PALETTE, MU_LEVELS,
+                    MU_OVERLAY, PAIR_LINK)
+from .style import model_colours
 
 __all__ = ["LENSVIEW_PALETTE", "STRETCHES", "display_norm", "model_colours",
            "render_field_figure", "render_source_plane_figure", "save_figure"]
 
-#: Model colours: the colour-blind-safe set of Okabe & Ito (2008, "Color
-#: Universal Design"), in an order of our own, without its yellow and black,
-#: which vanish on a light background or on dark sources.
-LENSVIEW_PALETTE = ("#D55E00", "#0072B2", "#009E73", "#CC79A7", "#E69F00", "#56B4E9")
+#: Model colours (defined in `lensview.style`, shared with the page's picture).
+LENSVIEW_PALETTE = MODEL_PALETTE
 
 STRETCHES = {"linear": LinearStretch, "sqrt": SqrtStretch, "log": LogStretch, "asinh": AsinhStretch}
 
-_CURVE_STYLES = {("image", "tangential"): ("-", 1.5), ("image", "radial"): ("--", 1.5),
-                 ("source", "tangential"): (":", 1.1), ("source", "radial"): ("-.", 1.1)}
-_STYLE_NAMES = {("image", "tangential"): "tangential critical curve",
-                ("image", "radial"): "radial critical curve",
-                ("source", "tangential"): "tangential caustic", ("source", "radial"): "radial caustic"}
+_CURVE_STYLES = CURVE_STYLES
+_STYLE_NAMES = CURVE_NAMES
 _INK = "#1A1A1A"
-_OVERLAY_INK = "#7A3E9D"
 #: |mu| levels of a magnification map drawn as an overlay.
-MU_OVERLAY_LEVELS = (3.0, 10.0, 30.0)
+MU_OVERLAY_LEVELS = MU_LEVELS
 _NEUTRAL = "#4D4D4D"
 _HALO = [patheffects.withStroke(linewidth=2.2, foreground="white")]
-_THIN_HALO = [patheffects.withStroke(linewidth=1.8, foreground="white")]
 _NICE_ARCSEC = (0.05, 0.1, 0.2, 0.25, 0.5, 1, 2, 2.5, 5, 10, 15, 20, 30, 60, 120, 300, 600, 1200)
 _FIGURE_WIDTH_IN = 6.0
 #: Room taken by tick labels, axis labels and title (inches), for the figure's aspect.
@@ -121,15 +118,6 @@ def _colormap(cmap):
         raise LensviewInputError(
             f"Unknown colour map {cmap!r}; use a matplotlib name such as 'gray_r', 'gray', "
             "'magma' or 'cividis'.") from error
-
-
-def model_colours(models):
-    """Colour of each model name, in order of first appearance, from `LENSVIEW_PALETTE`."""
-    colours = {}
-    for name in models:
-        if name not in colours:
-            colours[name] = LENSVIEW_PALETTE[len(colours) % len(LENSVIEW_PALETTE)]
-    return colours
 
 
 # ---------------------------------------------------------------------------- figures
@@ -204,8 +192,8 @@ def _draw_magnification_overlay(ax, wcs, shape, mu_map, levels):
     from .io.mapfiles import magnification_overlay_on
 
     mu = magnification_overlay_on(mu_map, wcs, shape)
-    ax.contour(np.where(np.isfinite(mu), mu, 0.0), levels=sorted(levels), colors=_OVERLAY_INK,
-               linewidths=0.8, linestyles=[(0, (1, 1.5))])
+    ax.contour(np.where(np.isfinite(mu), mu, 0.0), levels=sorted(levels), colors=MU_OVERLAY.colour,
+               linewidths=MU_OVERLAY.width, linestyles=MU_OVERLAY.dash)
 
 
 def render_source_plane_figure(image, wcs, caustics, traced_candidates=None, *, z_source=None,
@@ -242,7 +230,7 @@ def render_source_plane_figure(image, wcs, caustics, traced_candidates=None, *, 
         table = as_candidate_table(traced_candidates)
         _draw_points(ax, _table_pixels(table, wcs), table["label"])
     _scale_bar(ax, wcs, image.shape, z_source, cosmology, "source")
-    _legend(ax, caustics, colours, has_points, False, candidate_name="traced candidate")
+    _legend(ax, caustics, colours, has_points, False, candidate_name="traced knot")
     ax.set_title(title or "source plane")
     return fig
 
@@ -328,33 +316,42 @@ def _table_pixels(table, wcs):
     return np.column_stack([x, y])
 
 
+def _mark(ax, xy, style, edge=None, zorder=5):
+    """Markers of a `lensview.style.MarkStyle`: the halo under the mark, sizes in points."""
+    marker = "o" if style.shape == "circle" else "s"
+    size = (2 * style.radius) ** 2
+    ax.scatter(xy[:, 0], xy[:, 1], s=size, marker=marker, facecolors="none",
+               edgecolors=style.halo, linewidths=style.width + style.halo_width, zorder=zorder)
+    ax.scatter(xy[:, 0], xy[:, 1], s=size, marker=marker, facecolors="none",
+               edgecolors=edge or style.colour, linewidths=style.width, zorder=zorder + 0.1)
+
+
 def _draw_points(ax, xy, labels):
-    ax.scatter(xy[:, 0], xy[:, 1], s=46, marker="D", facecolors="none", edgecolors=_INK,
-               linewidths=1.1, path_effects=_HALO, zorder=5)
+    _mark(ax, xy, KNOT)
+    halo = [patheffects.withStroke(linewidth=2.0, foreground=KNOT.halo)]
     for (x, y), label in zip(xy, labels):
-        ax.annotate(str(label), (x, y), xytext=(6, 5), textcoords="offset points", fontsize=8,
-                    color=_INK, path_effects=_HALO, zorder=6, annotation_clip=True)
+        ax.annotate(str(label), (x, y), xytext=(KNOT.radius + 1.5, KNOT.radius), fontsize=8,
+                    textcoords="offset points", color=KNOT.colour, path_effects=halo, zorder=6,
+                    annotation_clip=True)
 
 
 def _draw_pairs(ax, xy, pairs):
     if not isinstance(pairs, Table) or "i" not in pairs.colnames or "j" not in pairs.colnames:
-        raise LensviewInputError("pairs must be a Table with columns i and j (candidate positions).")
+        raise LensviewInputError("pairs must be a Table with columns i and j (knot positions).")
+    halo = [patheffects.withStroke(linewidth=PAIR_LINK.width + PAIR_LINK.halo_width,
+                                   foreground=PAIR_LINK.halo)]
     for i, j in zip(pairs["i"], pairs["j"]):
         i, j = int(i), int(j)
         if not (0 <= i < len(xy) and 0 <= j < len(xy)):
             raise LensviewInputError(
-                f"Pair ({i}, {j}) refers to a candidate beyond the {len(xy)} given; pass the same "
-                "candidates the pairs were computed for.")
-        ax.plot(xy[[i, j], 0], xy[[i, j], 1], color=_NEUTRAL, linewidth=0.9, path_effects=_THIN_HALO,
-                zorder=4)
+                f"Pair ({i}, {j}) refers to a knot beyond the {len(xy)} given; pass the same "
+                "knots the pairs were computed for.")
+        ax.plot(xy[[i, j], 0], xy[[i, j], 1], color=PAIR_LINK.colour, linewidth=PAIR_LINK.width,
+                path_effects=halo, zorder=4)
 
 
 def _draw_counterimages(ax, wcs, counterimages, colours):
-    xy = _table_pixels(counterimages, wcs)
-    models = counterimages["model"] if "model" in counterimages.colnames else [None] * len(xy)
-    edge = [colours.get(str(m), _NEUTRAL) if m is not None else _NEUTRAL for m in models]
-    ax.scatter(xy[:, 0], xy[:, 1], s=60, marker="s", facecolors="none", edgecolors=edge,
-               linewidths=1.2, path_effects=_HALO, zorder=5)
+    _mark(ax, _table_pixels(counterimages, wcs), COUNTERIMAGE)
 
 
 def _scale_bar(ax, wcs, shape, redshift, cosmology, plane):
@@ -384,13 +381,20 @@ def _significant(value, digits=3):
     return f"{value:.{decimals}f}"
 
 
-def _legend(ax, curves, colours, has_candidates, has_counterimages, candidate_name="candidate",
+def _legend_mark(style, label):
+    return Line2D([], [], linestyle="none", marker="o" if style.shape == "circle" else "s",
+                  markersize=2 * style.radius, markerfacecolor="none",
+                  markeredgecolor=style.colour, markeredgewidth=style.width, label=label)
+
+
+def _legend(ax, curves, colours, has_candidates, has_counterimages, candidate_name=KNOT.name,
             mu_levels=()):
     handles = [Line2D([], [], color=colour, linewidth=2.0, label=name) for name, colour in colours.items()]
     if len(mu_levels):
-        handles.append(Line2D([], [], color=_OVERLAY_INK, linestyle=(0, (1, 1.5)), linewidth=0.8,
+        handles.append(Line2D([], [], color=MU_OVERLAY.colour, linestyle=MU_OVERLAY.dash,
+                              linewidth=MU_OVERLAY.width,
                               label="|\u03bc| = " + ", ".join(f"{v:g}" for v in sorted(mu_levels))
-                              + " (map from file, overlay only)"))
+                              + " (uploaded map, overlay only)"))
     present = []
     for curve in curves:
         key = (curve.plane, curve.kind)
@@ -401,10 +405,8 @@ def _legend(ax, curves, colours, has_candidates, has_counterimages, candidate_na
         handles.append(Line2D([], [], color=_NEUTRAL, linestyle=style, linewidth=width,
                               label=_STYLE_NAMES[key]))
     if has_candidates:
-        handles.append(Line2D([], [], linestyle="none", marker="D", markerfacecolor="none",
-                              markeredgecolor=_INK, label=candidate_name))
+        handles.append(_legend_mark(KNOT, candidate_name))
     if has_counterimages:
-        handles.append(Line2D([], [], linestyle="none", marker="s", markerfacecolor="none",
-                              markeredgecolor=_NEUTRAL, label="predicted counter-image"))
+        handles.append(_legend_mark(COUNTERIMAGE, COUNTERIMAGE.name))
     if handles:
         ax.legend(handles=handles, loc="upper right", fontsize=7, framealpha=0.85)

@@ -57,7 +57,8 @@ def measure_candidates(coords, fields, z_source, *, cosmology=None, labels=None)
         ``offset_ly``, ``curve_ra``, ``curve_dec`` (nearest curve point),
         ``curve_floor_arcsec`` (the positional uncertainty the model map's own
         storage precision leaves on that curve, `Curve.position_floor`),
-        ``side`` ("inside"/"outside" of a closed curve), ``mu``, ``parity``,
+        ``inside_or_outside`` ("inside"/"outside" of the nearest closed
+        curve, "" otherwise), ``mu``, ``parity``,
         ``kappa``, ``gamma``, ``lambda_t``, ``lambda_r``,
         ``fold_coefficient_arcsec``, ``fold_mu``, ``source_ra``,
         ``source_dec``, ``caustic_offset_arcsec``, ``caustic_offset_pc`` and
@@ -186,7 +187,7 @@ def _measure_one_model(coords, field, z_source, cosmology, labels):
     table["curve_ra"] = foot_sky.ra.deg * u.deg
     table["curve_dec"] = foot_sky.dec.deg * u.deg
     table["curve_floor_arcsec"] = curve_floor * u.arcsec
-    table["side"] = side
+    table["inside_or_outside"] = side
     table["mu"] = mu
     table["abs_mu"] = np.abs(mu)
     table["parity"] = parity
@@ -264,13 +265,13 @@ def summarize_models(table):
     `~astropy.table.Table`
         One row per candidate: ``candidate``, ``label``, ``n_models`` (models
         with a finite measurement), min/median/max of ``offset_arcsec`` and of
-        ``abs_mu``, ``same_side`` (every model gives the same parity) and
+        ``abs_mu``, ``parity_agrees`` (every model gives the same parity) and
         ``parity`` (the common parity, 0 when models disagree).
     """
     out = Table()
     candidates = np.unique(np.asarray(table["candidate"]))
     out["candidate"] = candidates
-    labels, n_models, same_side, parity = [], [], [], []
+    labels, n_models, parity_agrees, parity = [], [], [], []
     stats = {key: [] for key in ("offset_min", "offset_median", "offset_max",
                                  "abs_mu_min", "abs_mu_median", "abs_mu_max")}
     for c in candidates:
@@ -285,7 +286,7 @@ def summarize_models(table):
                 stats[f"{prefix}_{stat}"].append(func(values) if len(values) else np.nan)
         parities = np.asarray(rows["parity"])[ok]
         agree = len(parities) > 0 and bool(np.all(parities == parities[0]))
-        same_side.append(agree)
+        parity_agrees.append(agree)
         parity.append(int(parities[0]) if agree else 0)
     out["label"] = labels
     out["n_models"] = n_models
@@ -294,7 +295,7 @@ def summarize_models(table):
         out[name] = values
         if key.startswith("offset"):
             out[name].unit = u.arcsec
-    out["same_side"] = same_side
+    out["parity_agrees"] = parity_agrees
     out["parity"] = parity
     out.meta.update(table.meta)
     return out

@@ -211,6 +211,11 @@ def click_on(app, coord, stamp):
         *viewport.display_to_cutout(*click_display_position(click, viewport)))
 
 
+def download_buttons(app):
+    """The page's download buttons (through ``get``, which every supported AppTest has)."""
+    return app.get("download_button")
+
+
 def shown_table(app, index=0):
     return app.table[index].value
 
@@ -238,7 +243,7 @@ def test_page_opens_on_the_demo_with_its_models_and_curves():
     viewport = app.session_state[page_state.VIEWPORT]
     assert (viewport.nx, viewport.ny) == scene.cutout.data.shape[::-1]
     assert any("model estimates" in w.value for w in app.warning)
-    assert [d.label for d in app.download_button][:1] == ["Download regions"]
+    assert [d.proto.label for d in download_buttons(app)][:1] == ["Download regions"]
 
 
 def test_click_adds_a_knot_measured_by_the_library():
@@ -596,3 +601,42 @@ def test_convergence_upload_and_magnification_overlay():
     run_page(app)
     assert not app.error, [e.value for e in app.error]
     assert any("cannot place critical curves" in c.value for c in app.caption)
+
+
+def test_table_downloads_before_their_tables_exist_are_disabled_with_a_reason():
+    app = run_page()
+    for choice in ("per model", "spread", "pairs", "counter-images"):
+        app.selectbox(key="lv_table_choice").set_value(choice)
+        run_page(app)
+        button = next(b for b in download_buttons(app) if b.proto.label == "Download table")
+        assert button.proto.help and "mark" in button.proto.help.lower(), choice
+    # One knot: the measurement tables and its counter-images exist, pairs not yet.
+    scene = app.session_state["lv_scene"]
+    click_on(app, demo_knot(scene, 0), stamp=1)
+    for choice, disabled in (("per model", False), ("counter-images", False), ("pairs", True)):
+        app.selectbox(key="lv_table_choice").set_value(choice)
+        run_page(app)
+        button = next(b for b in download_buttons(app) if b.proto.label == "Download table")
+        assert button.proto.disabled == disabled, choice
+
+
+def test_uploads_above_the_stated_limit_are_refused_before_reading():
+    from streamlit import config
+
+    app = run_page()
+    click_on(app, demo_knot(app.session_state["lv_scene"], 0), stamp=1)
+    app.radio(key="lv_source").set_value("My files")
+    run_page(app)
+    assert "MB per file" in uploader(app, "cutout").help
+    previous = config.get_option("server.maxUploadSize")
+    config.set_option("server.maxUploadSize", 1)
+    try:
+        run_page(app)
+        assert "Up to 1 MB per file" in uploader(app, "cutout").help
+        big = fits_bytes(np.zeros((600, 600), np.float32), small_wcs((600, 600)))
+        uploader(app, "cutout").set_value(("big.fits", big, "application/fits"))
+        run_page(app)
+    finally:
+        config.set_option("server.maxUploadSize", previous)
+    assert any("upload limit of 1 MB" in e.value for e in app.error)
+    assert len(app.session_state[page_state.CANDIDATES]) == 1

@@ -140,7 +140,7 @@ def test_click_on_a_demo_knot_measures_it_and_downloads_regions(server, browser,
     # The library's own measurement at the clicked position is the reference.
     np.testing.assert_allclose(shown, np.asarray(expected["offset_arcsec"]), atol=0.01)
 
-    page.get_by_role("tab", name="Take away and restore").click()
+    page.get_by_role("tab", name="Download and restore").click()
     with page.expect_download(timeout=60_000) as download_info:
         page.get_by_role("button", name="Download regions").click()
     region_path = tmp_path / "regions.fits"

@@ -253,3 +253,31 @@ def test_figure_draws_a_magnification_overlay(files, tmp_path, capsys):
     status = main(["curves", "--model", str(tmp_path / "mu.fits"), "--z-lens", str(Z_LENS),
                    "--z-source", str(Z_SOURCE), "-o", str(tmp_path / "c.ecsv")])
     assert status == 2 and "not enough to place critical curves" in capsys.readouterr().err
+
+
+def test_pair_takes_the_psf_fwhm_and_knots_with_the_old_option_name(files, tmp_path, capsys):
+    tmp = files[0]
+    for option in ("--knots", "--candidates"):
+        out = tmp_path / f"pairs{option}.ecsv"
+        assert main(["pair", *model_args(tmp), option, str(tmp / "knots.ecsv"), "--psf-fwhm", "0.1",
+                     "-o", str(out)]) == 0
+        assert "score" in Table.read(out).colnames
+    assert main(["pair", *model_args(tmp), "--knots", str(tmp / "knots.ecsv"), "--psf-fwhm", "-1",
+                 "-o", str(tmp_path / "bad.ecsv")]) == 2
+    assert "--psf-fwhm" in capsys.readouterr().err
+    with pytest.raises(SystemExit):
+        main(["pair", *model_args(tmp), "-o", str(tmp_path / "none.ecsv")])
+    assert "--knots" in capsys.readouterr().err
+
+
+def test_figure_draws_pairs_counterimages_with_the_page_display_options(files, tmp_path, capsys):
+    tmp = files[0]
+    out = tmp_path / "field.png"
+    assert main(["figure", *model_args(tmp), "--cutout", str(tmp / "cutout.fits"),
+                 "--knots", str(tmp / "knots.ecsv"), "--pairs", "--counterimages-of", "north",
+                 "--limits", "99.5", "--cmap", "magma", "--dpi", "60", "-o", str(out)]) == 0
+    assert out.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+    status = main(["figure", *model_args(tmp), "--cutout", str(tmp / "cutout.fits"),
+                   "--knots", str(tmp / "knots.ecsv"), "--counterimages-of", "nope",
+                   "-o", str(out)])
+    assert status == 2 and "names no knot" in capsys.readouterr().err

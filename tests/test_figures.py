@@ -129,7 +129,7 @@ def test_overlays_legend_and_scale_bar(ring, cutout_wcs):
     ax = fig.axes[0]
     legend = [t.get_text() for t in ax.get_legend().get_texts()]
     assert legend[:2] == ["model A", "model B"]
-    assert {"tangential critical curve", "radial critical curve", "candidate",
+    assert {"tangential critical curve", "radial critical curve", "knot",
             "predicted counter-image"} <= set(legend)
     texts = [t.get_text() for t in ax.texts]
     assert "K1" in texts and "K2" in texts
@@ -189,7 +189,7 @@ def test_source_plane_figure_draws_caustics_and_traced_points(tmp_path, ring, cu
     fig = render_source_plane_figure(image, cutout_wcs, [caustic], traced, z_source=2.0,
                                      limits=(0.0, 1.0))
     legend = [t.get_text() for t in fig.axes[0].get_legend().get_texts()]
-    assert legend == ["model A", "tangential caustic", "traced candidate"]
+    assert legend == ["model A", "tangential caustic", "traced knot"]
     assert fig.axes[0].get_lines()[0].get_linestyle() == ":"
     fig.set_dpi(DPI)
     path = save_figure(fig, tmp_path / "source.png", dpi=DPI)

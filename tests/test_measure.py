@@ -71,7 +71,7 @@ def test_offsets_from_sie_curve_and_physical_units(sie_case):
     outside = offsets_arcsec.repeat(7) > 0
     # Outside the tangential curve of an isothermal lens, det A = 1 - 2 kappa > 0 (even parity).
     assert np.all(table["parity"][outside] == 1) and np.all(table["parity"][~outside] == -1)
-    assert np.all(table["side"][outside] == "outside") and np.all(table["side"][~outside] == "inside")
+    assert np.all(table["inside_or_outside"][outside] == "outside") and np.all(table["inside_or_outside"][~outside] == "inside")
 
 
 def test_magnification_near_curve_matches_analytic(sie_case):
@@ -149,8 +149,8 @@ def test_model_spread_summary():
         assert row["offset_arcsec_median"] == pytest.approx(np.median(rows["offset_arcsec"]))
         assert row["n_models"] == 3
     # Candidate A at r = 53 f px lies outside the narrow model's curve and inside the others.
-    assert not summary["same_side"][0] and summary["parity"][0] == 0
-    assert summary["same_side"][1] and summary["parity"][1] == 1
+    assert not summary["parity_agrees"][0] and summary["parity"][0] == 0
+    assert summary["parity_agrees"][1] and summary["parity"][1] == 1
 
 
 def test_offset_to_a_curve_cut_by_a_mask_is_flagged():

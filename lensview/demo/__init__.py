@@ -47,10 +47,11 @@ same bytes (no dates or checksums in the headers). `load_demo` reads them
 back through `lensview.io.fits` and `lensview.io`.
 """
 
-from .generate import generate_demo
+from .generate import generate_demo, library_versions
 from .loading import load_demo, load_demo_filters
-from .scenario import (COMPACT_TEMPERATURE, FILTERS, REFERENCE_FILTER, CANDIDATE_FILE, CLUSTER_NAME, CUTOUT_FILE, DEFAULT_SEED, DEMO_DIRECTORY, GRIDS,
-                       MODEL_NAMES, README_FILE, TRUTH_MODEL, Z_LENS, Z_SOURCE, lens_profiles)
+from .scenario import (CANDIDATE_FILE, CLUSTER_NAME, COMPACT_TEMPERATURE, CUTOUT_FILE, DEFAULT_SEED,
+                       DEMO_DIRECTORY, FILTERS, GRIDS, MODEL_NAMES, README_FILE, REFERENCE_FILTER,
+                       TRUTH_MODEL, VERSIONS_FILE, Z_LENS, Z_SOURCE, lens_profiles)
 
 __all__ = [
     "DEMO_DIRECTORY",
@@ -63,6 +64,7 @@ __all__ = [
     "CUTOUT_FILE",
     "CANDIDATE_FILE",
     "README_FILE",
+    "VERSIONS_FILE",
     "GRIDS",
     "generate_demo",
     "load_demo",
@@ -71,4 +73,5 @@ __all__ = [
     "REFERENCE_FILTER",
     "COMPACT_TEMPERATURE",
     "lens_profiles",
+    "library_versions",
 ]

@@ -1,5 +1,6 @@
 """Writing the demo scenario's files deterministically."""
 
+import json
 from pathlib import Path
 
 import numpy as np
@@ -9,12 +10,14 @@ from astropy.table import Table
 
 from ..cosmology import angular_scale
 from ..errors import LensviewInputError
-from .fold import ImageFinder, fold_frame, inward_for_separation
 from .colours import filter_look
+from .fold import ImageFinder, fold_frame, inward_for_separation
 from .maps import model_maps, write_model
 from .readme import readme_text
 from .render import cutout_header, render_cutout
-from .scenario import FILTERS, REFERENCE_FILTER, CANDIDATE_FILE, CLUSTER_NAME, COMPACT_SEPARATION, CUTOUT_FILE, DEFAULT_SEED, DEMO_DIRECTORY, GRIDS, KNOTS, MIRROR_SEPARATION, MODEL_NAMES, README_FILE, TRUTH_MODEL, Z_LENS, Z_SOURCE
+from .scenario import (CANDIDATE_FILE, CLUSTER_NAME, COMPACT_SEPARATION, CUTOUT_FILE, DEFAULT_SEED,
+                       DEMO_DIRECTORY, FILTERS, GRIDS, KNOTS, MIRROR_SEPARATION, MODEL_NAMES,
+                       README_FILE, REFERENCE_FILTER, TRUTH_MODEL, VERSIONS_FILE, Z_LENS, Z_SOURCE)
 
 
 def _check_options(seed, size_factor):
@@ -51,7 +54,8 @@ def generate_demo(directory=DEMO_DIRECTORY, seed=None, *, size_factor=1.0):
     Returns
     -------
     list of `pathlib.Path`
-        The files written: model maps, cutouts (one per filter), candidate list, README.
+        The files written: model maps, cutouts (one per filter), candidate list, README,
+        library versions.
 
     Raises
     ------
@@ -109,7 +113,28 @@ def generate_demo(directory=DEMO_DIRECTORY, seed=None, *, size_factor=1.0):
     readme_path.write_text(readme_text(fields, truth_values, candidates, size_factor, seed),
                            encoding="utf-8")
     written.append(readme_path)
+    versions_path = directory / VERSIONS_FILE
+    versions_path.write_text(json.dumps(library_versions(), indent=1) + "\n", encoding="utf-8")
+    written.append(versions_path)
     return written
+
+
+def library_versions():
+    """The versions of the libraries whose arithmetic the demo files depend on.
+
+    Returns
+    -------
+    dict
+        ``numpy``, ``scipy``, ``astropy`` versions and the machine
+        architecture; the same values regenerate the files bit for bit.
+    """
+    import platform
+
+    import astropy
+    import scipy
+
+    return {"numpy": np.__version__, "scipy": scipy.__version__,
+            "astropy": astropy.__version__, "machine": platform.machine()}
 
 
 def _truth_values(fields, fold, knots, images, arc_mu):

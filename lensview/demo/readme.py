@@ -7,6 +7,7 @@ from astropy.coordinates import SkyCoord
 from .maps import scaled_size
 from .scenario import (CLUMP_SLOPE, COMPACT_TEMPERATURE, FIELD_SLOPE, FILTERS, HOST_SLOPE,
                        MEMBER_SLOPE, REFERENCE_FILTER)
+from .scenario import VERSIONS_FILE
 from .scenario import CANDIDATE_FILE, CENTRE, CLUSTER_NAME, CUTOUT_FILE, CUTOUT_SCALE, CUTOUT_SHAPE, GRIDS, HOST, KNOTS, MEMBERS, MODEL_NAMES, OVERSAMPLE, PSF_BETA, PSF_FWHM, SKY_SIGMA, TRUTH_MODEL, ZERO_POINT, Z_LENS, Z_SOURCE, describe_model
 
 
@@ -100,12 +101,14 @@ behind any of it. The app opens on these files, and the README examples and
 end-to-end tests use them:
 
 ```python
-from ..demo import load_demo
-cutout, fields, candidates = load_demo()   # fitsio.Cutout, 3 DeflectionFields, Table
+from lensview.demo import load_demo
+cutout, fields, candidates = load_demo()   # Cutout, 3 DeflectionFields, Table
 ```
 
-Regenerate them bit for bit (the bundled files use seed {seed}) with
-`lensview demo sample_images`, or `lensview.demo.generate_demo("sample_images")`.
+Regenerate them (the bundled files use seed {seed}) with
+`lensview demo sample_images`, or `lensview.demo.generate_demo("sample_images")`:
+bit for bit with the library versions in `{VERSIONS_FILE}`; other releases
+round differently, far below the noise and a micro-arcsecond.
 
 ## The scenario
 

@@ -29,6 +29,10 @@ MODEL_NAMES = ("isothermal", "NFW shear", "perturbed")
 CUTOUT_FILE = "lantern_arc_cutout.fits"
 CANDIDATE_FILE = "candidates.ecsv"
 README_FILE = "README.md"
+#: The numerical libraries' versions (and machine) that wrote the files: other
+#: releases round differently in the last bits, so only the same versions
+#: regenerate the files bit for bit.
+VERSIONS_FILE = "library_versions.json"
 
 CENTRE = SkyCoord(211.9374 * u.deg, -7.4218 * u.deg)
 # The scenario plane: arcsec East and North of the cluster centre.

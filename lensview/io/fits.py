@@ -292,11 +292,25 @@ def _open_fits(source):
             f"Cannot read a FITS file from {type(source).__name__}; give a path, the "
             "file's bytes or an open binary file."
         )
+    from .fits_structure import check_fits_structure
+
+    if isinstance(target, io.BytesIO):
+        view = target.getbuffer()
+        check_fits_structure(lambda offset, n: bytes(view[offset:offset + n]), len(view), label)
+        del view  # a live buffer view would keep the BytesIO from being read
+    else:
+        with open(target, "rb") as handle:
+            def read_at(offset, n):
+                handle.seek(offset)
+                return handle.read(n)
+
+            check_fits_structure(read_at, os.path.getsize(target), label)
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", AstropyUserWarning)
             hdul = fits.open(target, memmap=memmap, lazy_load_hdus=False)
-    except (OSError, ValueError, TypeError, EOFError, IndexError, KeyError) as error:
+    except (OSError, ValueError, TypeError, EOFError, IndexError, KeyError, OverflowError,
+            MemoryError) as error:
         raise _not_fits(label, error) from None
     try:
         yield hdul, label
@@ -392,7 +406,8 @@ def _hdu_data(hdu, label, index):
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", AstropyUserWarning)
             return hdu.data
-    except (OSError, ValueError, TypeError, EOFError) as error:
+    except (OSError, ValueError, TypeError, EOFError, KeyError, IndexError, OverflowError,
+            MemoryError) as error:
         raise _not_fits(_where(label, index), error) from None
 
 

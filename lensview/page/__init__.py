@@ -14,7 +14,7 @@ __all__ = ["main"]
 
 TITLE = "lensview"
 TABS = ("Measurements", "Counter-images and pairs", "Source plane", "Colours and nature",
-        "Posterior spread", "Take away and restore")
+        "Posterior spread", "Download and restore")
 
 
 def main():

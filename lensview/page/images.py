@@ -26,7 +26,7 @@ _PAIR_COLUMNS = (
     ("knot_i", "knot", None),
     ("knot_j", "mirrored by", None),
     ("model", "model", None),
-    ("score", "score", "{:.2f}"),
+    ("score", "score (0 best, gate 9)", "{:.2f}"),
     ("source_sep_arcsec", "source-plane separation (arcsec)", "{:.3f}"),
     ("tolerance_arcsec", "tolerance (arcsec)", "{:.3f}"),
     ("separation_arcsec", "image separation (arcsec)", "{:.3f}"),
@@ -56,10 +56,13 @@ def images_panel(state, results, models):
             state["lv_focus"] = results.focus or labels[-1]
         left.selectbox("Predict the counter-images of", labels, key="lv_focus")
     middle.number_input("PSF FWHM (arcsec, 0: not set)", 0.0, 5.0, 0.0, 0.01, key="lv_psf_fwhm",
-                        help="Knots whose predicted images lie closer than this merge into a "
-                             "single unresolved image on the curve.")
+                        help="PSF FWHM: knots whose predicted images lie closer than this merge "
+                             "into one unresolved image on the curve (as `lensview pair "
+                             "--psf-fwhm`).")
     right.number_input("Pairing tolerance (arcsec, 0: from the model spread)", 0.0, 10.0, 0.0,
-                       0.01, key="lv_tolerance")
+                       0.01, key="lv_tolerance",
+                       help="The largest source-plane separation of two traced knots that can "
+                            "still be one source (as `lensview pair --tolerance`).")
     if not labels:
         st.caption("Mark knots on the picture to predict their counter-images and pairs.")
         return
@@ -78,7 +81,8 @@ def images_panel(state, results, models):
         st.caption("Pairs need at least two marked knots.")
         return
     if not len(results.pairs):
-        st.caption("No pair passes the gate: no two knots look like images of one source.")
+        st.caption("No pair passes the gate (opposite parity and a score of at most 9): no "
+                   "two knots look like images of one source.")
         return
     choices = (["consensus"] if len(models) > 1 else []) + list(models)
     if state.get("lv_pairs_shown") not in choices:
@@ -97,8 +101,10 @@ def images_panel(state, results, models):
                     if all(k in v for v in unpaired.values())})
     if alone:
         st.caption("Left unpaired by every model: " + ", ".join(alone))
-    st.caption("Pairs are scored by the source-plane separation of the traced positions, "
-               "opposite parity and a critical curve between the two images; consensus rows "
-               "are pairs chosen by most models.")
+    st.caption("Score: 0 is a perfect match, lower is better; a chi-square-like sum of the "
+               "source-plane separation of the traced positions over the tolerance, the "
+               "midpoint's distance from the critical curve, and a penalty when no curve lies "
+               "between the two images. The gate lets through only opposite-parity pairs "
+               "scoring at most 9; consensus rows are pairs chosen by most models.")
     if np.any(~np.asarray(results.pairs["curve_between"], bool)):
         st.caption("Some pairs have no critical curve between them: treat those with care.")

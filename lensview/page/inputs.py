@@ -23,7 +23,7 @@ from ..checks import H0_RANGE, OM0_RANGE, flat_cosmology
 from ..errors import LensviewInputError, MissingMassWarning
 
 __all__ = ["Scene", "HeldFile", "inputs_panel", "demo_scene", "files_scene", "upload_slot",
-           "held_files", "cosmology_from_choice"]
+           "held_files", "cosmology_from_choice", "upload_limit_mb"]
 
 _SCENE = "lv_scene"
 _FILES = "lv_files"
@@ -236,10 +236,25 @@ def _take_upload(state, slot, key, keep):
     """
     value = state.get(key)
     uploads = value if isinstance(value, list) else ([value] if value is not None else [])
+    limit = upload_limit_mb()
+    too_big = [up.name for up in uploads if getattr(up, "size", 0) > limit * 1024 * 1024]
+    state.setdefault("lv_upload_errors", {}).pop(slot, None)
+    if too_big:
+        # Checked before any byte is read as FITS: the server enforces the same limit.
+        state["lv_upload_errors"][slot] = (
+            f"{', '.join(too_big)} is larger than the upload limit of {limit} MB per file; "
+            "nothing was read. Crop or bin the file, or use the command line, which reads "
+            "files of any size from disk (memory-mapped).")
+        uploads = []
     if uploads:
         new = [HeldFile.of(up.name, up.getvalue()) for up in uploads]
         state.setdefault(_FILES, {})[slot] = (held_files(state, slot) + new)[-keep:]
     state[f"lv_upload_version_{slot}"] = state.get(f"lv_upload_version_{slot}", 0) + 1
+
+
+def upload_limit_mb():
+    """The largest upload the page accepts, in MB (``server.maxUploadSize``, .streamlit/config.toml)."""
+    return int(st.get_option("server.maxUploadSize"))
 
 
 def _drop_upload(state, slot):
@@ -250,8 +265,13 @@ def upload_slot(state, label, slot, *, keep=1, help=None):
     """An uploader whose files the page holds (see `_take_upload`); returns the held files."""
     version = state.get(f"lv_upload_version_{slot}", 0)
     key = f"lv_up_{slot}_{version}"
-    st.file_uploader(label, key=key, accept_multiple_files=keep > 1, help=help,
+    limit = f"Up to {upload_limit_mb()} MB per file."
+    st.file_uploader(label, key=key, accept_multiple_files=keep > 1,
+                     help=f"{help} {limit}" if help else limit,
                      on_change=_take_upload, args=(state, slot, key, keep))
+    error = state.get("lv_upload_errors", {}).get(slot)
+    if error:
+        st.error(error)
     held = held_files(state, slot)
     if held:
         sizes = ", ".join(f"{h.name} ({len(h.content) / 1e6:.1f} MB)" for h in held)
@@ -421,10 +441,15 @@ def _file_widgets(state):
                 help="A convergence map is turned into deflections by FFT (the mass outside the "
                      "map is missing, so curves near its edge are the least trustworthy); a "
                      "potential map by its gradient, and it also gives time delays directly.")]
-            units = _UNIT_CHOICES[st.selectbox("Deflection units", list(_UNIT_CHOICES),
-                                               key=f"lv_units_{k}")]
-            norm = st.radio("Normalisation", [_NORM_FROM_FILE, _NORM_UNIT, _NORM_REFERENCE],
-                            key=f"lv_norm_{k}")
+            units = _UNIT_CHOICES[st.selectbox(
+                "Deflection units", list(_UNIT_CHOICES), key=f"lv_units_{k}",
+                help="What the map values count: arcsec on the sky, or pixels of the map's own "
+                     "grid (not the cutout's). 'As the file says' reads the BUNIT keyword.")]
+            norm = st.radio(
+                "Normalisation", [_NORM_FROM_FILE, _NORM_UNIT, _NORM_REFERENCE], key=f"lv_norm_{k}",
+                help="For which source the maps were made: D_ls/D_s = 1 (rescaled to any source "
+                     "redshift), or the deflections of a source at a given redshift (Z_NORM). "
+                     "lensview rescales them to the source redshift chosen above.")
             z_norm = FROM_HEADER if norm == _NORM_FROM_FILE else None
             if norm == _NORM_REFERENCE:
                 z_norm = float(st.number_input("Reference source redshift", 0.02, 20.0, 2.0, 0.01,

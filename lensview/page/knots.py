@@ -19,7 +19,7 @@ _MEASURE_COLUMNS = (
     ("label", "knot", None),
     ("model", "model", None),
     ("curve_kind", "nearest curve", None),
-    ("side", "side", None),
+    ("inside_or_outside", "inside or outside the curve", None),
     ("offset_arcsec", "offset (arcsec)", "{:.4f}"),
     ("offset_pc", "offset (pc)", "{:.1f}"),
     ("offset_ly", "offset (ly)", "{:.0f}"),
@@ -34,12 +34,12 @@ _SPREAD_COLUMNS = (
     ("label", "knot", None),
     ("n_models", "models", "{:d}"),
     ("offset_arcsec_min", "offset min (arcsec)", "{:.4f}"),
-    ("offset_arcsec_median", "offset median", "{:.4f}"),
-    ("offset_arcsec_max", "offset max", "{:.4f}"),
+    ("offset_arcsec_median", "offset median (arcsec)", "{:.4f}"),
+    ("offset_arcsec_max", "offset max (arcsec)", "{:.4f}"),
     ("abs_mu_min", "|\u03bc| min", "{:.2f}"),
     ("abs_mu_median", "|\u03bc| median", "{:.2f}"),
     ("abs_mu_max", "|\u03bc| max", "{:.2f}"),
-    ("same_side", "same parity in all models", None),
+    ("parity_agrees", "same parity in all models", None),
 )
 
 

@@ -10,26 +10,29 @@ Two layers, so that a click redraws only what it changed:
 * the mark layer (knots and labels, pair links, predicted counter-images) is
   drawn on a copy of it with PIL on every rerun.
 
-Colours, line styles and the display normalisation come from
-`lensview.figures`, so the picture and the downloadable figure agree.
+Colours, line styles and markers come from `lensview.style` and the display
+normalisation from `lensview.figures`, so the picture and the downloadable
+figure agree.
 This module only draws; every position it places comes from a library call.
 """
 
 import numpy as np
 from PIL import Image, ImageDraw, ImageFont
 
+from ..style import COUNTERIMAGE, CONTOUR, KNOT, MU_OVERLAY, PAIR_LINK, points_to_pixels, rgb
+from ..style import CURVE_STYLES as CURVE_STYLES_BY_PLANE
+
 __all__ = ["render_base_layer", "draw_marks", "CURVE_STYLES", "KNOT_COLOUR"]
 
-#: Line style and width of each kind of curve (tangential solid, radial dashed),
-#: as in the downloadable figure.
-CURVE_STYLES = {"tangential": ("-", 1.6), "radial": ("--", 1.4)}
+#: Line style and width of each kind of critical curve, from `lensview.style`.
+CURVE_STYLES = {kind: CURVE_STYLES_BY_PLANE[("image", kind)] for kind in ("tangential", "radial")}
 #: Ink of the knot markers and labels, and of their halo.
-KNOT_COLOUR = (255, 214, 0)
-KNOT_HALO = (20, 20, 20)
-COUNTERIMAGE_COLOUR = (0, 229, 255)
-PAIR_COLOUR = (255, 255, 255)
+KNOT_COLOUR = rgb(KNOT.colour)
+KNOT_HALO = rgb(KNOT.halo)
+COUNTERIMAGE_COLOUR = rgb(COUNTERIMAGE.colour)
+PAIR_COLOUR = rgb(PAIR_LINK.colour)
 #: Contours of an uploaded magnification map.
-OVERLAY_COLOUR = "#B07AD6"
+OVERLAY_COLOUR = MU_OVERLAY.colour
 _DPI = 100
 
 
@@ -94,15 +97,15 @@ def render_base_layer(data, viewport, *, stretch, limits, cmap, curves=(), model
         rows, cols = viewport.slices
         yy, xx = np.mgrid[rows, cols]
         finite = np.where(np.isfinite(contours), contours, 0.0)
-        ax.contour(xx, yy, finite, levels=sorted(contour_levels), colors="#7F7F7F",
-                   linewidths=0.8, linestyles=":")
+        ax.contour(xx, yy, finite, levels=sorted(contour_levels), colors=CONTOUR.colour,
+                   linewidths=CONTOUR.width, linestyles=CONTOUR.dash)
     show_overlay = overlay is not None and len(overlay_levels) > 0
     if show_overlay:
         rows, cols = viewport.slices
         yy, xx = np.mgrid[rows, cols]
         ax.contour(xx, yy, np.where(np.isfinite(overlay), overlay, 0.0),
-                   levels=sorted(overlay_levels), colors=OVERLAY_COLOUR, linewidths=1.0,
-                   linestyles="-.")
+                   levels=sorted(overlay_levels), colors=OVERLAY_COLOUR, linewidths=MU_OVERLAY.width,
+                   linestyles=MU_OVERLAY.dash)
     for model, kind, xy, closed in curves:
         if len(xy) < 2:
             continue
@@ -122,27 +125,22 @@ def render_base_layer(data, viewport, *, stretch, limits, cmap, curves=(), model
                     for kind in kinds]
         if contours is not None and len(contour_levels):
             levels = ", ".join(f"{level:g}" for level in sorted(contour_levels))
-            handles.append(Line2D([], [], color="#7F7F7F", linestyle=":", linewidth=0.8,
-                                  label=f"|\u03bc| = {levels}"))
+            handles.append(Line2D([], [], color=CONTOUR.colour, linestyle=CONTOUR.dash,
+                                  linewidth=CONTOUR.width, label=f"|\u03bc| = {levels}"))
         if show_overlay:
             levels = ", ".join(f"{level:g}" for level in sorted(overlay_levels))
-            handles.append(Line2D([], [], color=OVERLAY_COLOUR, linestyle="-.", linewidth=1.0,
+            handles.append(Line2D([], [], color=OVERLAY_COLOUR, linestyle=MU_OVERLAY.dash,
+                                  linewidth=MU_OVERLAY.width,
                                   label=f"|\u03bc| = {levels} (uploaded map, overlay only)"))
         handles += [
-            Line2D([], [], linestyle="none", marker="o", markersize=7, markerfacecolor="none",
-                   markeredgecolor=_hex(KNOT_COLOUR), markeredgewidth=1.5, label="marked knot"),
-            Line2D([], [], linestyle="none", marker="s", markersize=7, markerfacecolor="none",
-                   markeredgecolor=_hex(COUNTERIMAGE_COLOUR), markeredgewidth=1.5,
-                   label="predicted counter-image"),
-        ]
+            Line2D([], [], linestyle="none", marker="o" if mark.shape == "circle" else "s",
+                   markersize=2 * mark.radius, markerfacecolor="none", markeredgecolor=mark.colour,
+                   markeredgewidth=mark.width, label=mark.name)
+            for mark in (KNOT, COUNTERIMAGE)]
         ax.legend(handles=handles, loc="upper right", fontsize=8, framealpha=0.8)
     fig.canvas.draw()
     rgba = np.asarray(fig.canvas.buffer_rgba())
     return np.ascontiguousarray(rgba[:viewport.height, :viewport.width, :3])
-
-
-def _hex(rgb):
-    return "#" + "".join(f"{c:02X}" for c in rgb)
 
 
 def draw_marks(base, viewport, knots=(), links=(), counterimages=()):
@@ -167,23 +165,36 @@ def draw_marks(base, viewport, knots=(), links=(), counterimages=()):
     picture = Image.fromarray(base)
     pen = ImageDraw.Draw(picture)
     font = ImageFont.load_default(size=13)
+
+    def px(points):
+        return max(int(round(points_to_pixels(points, _DPI))), 1)
+
+    link, link_halo = px(PAIR_LINK.width), px(PAIR_LINK.width + PAIR_LINK.halo_width)
     for start, end in links:
         u1, v1 = viewport.cutout_to_display(*start)
         u2, v2 = viewport.cutout_to_display(*end)
-        pen.line([(u1, v1), (u2, v2)], fill=KNOT_HALO, width=4)
-        pen.line([(u1, v1), (u2, v2)], fill=PAIR_COLOUR, width=2)
-    for x, y in counterimages:
-        u, v = viewport.cutout_to_display(x, y)
-        for colour, grow in ((KNOT_HALO, 1), (COUNTERIMAGE_COLOUR, 0)):
-            r = 7 + grow
-            pen.rectangle([u - r, v - r, u + r, v + r], outline=colour, width=2 + grow)
+        pen.line([(u1, v1), (u2, v2)], fill=KNOT_HALO, width=link_halo)
+        pen.line([(u1, v1), (u2, v2)], fill=PAIR_COLOUR, width=link)
+    for style, points in ((COUNTERIMAGE, counterimages), (KNOT, [(x, y) for _, x, y in knots])):
+        r = points_to_pixels(style.radius, _DPI)
+        layers = ((rgb(style.halo), px(style.width + style.halo_width)),
+                  (rgb(style.colour), px(style.width)))
+        for x, y in points:
+            u, v = viewport.cutout_to_display(x, y)
+            if not viewport.contains_display(u, v):
+                continue
+            box = [u - r, v - r, u + r, v + r]
+            for colour, width in layers:
+                if style.shape == "circle":
+                    pen.ellipse(box, outline=colour, width=width)
+                else:
+                    pen.rectangle(box, outline=colour, width=width)
+    r = points_to_pixels(KNOT.radius, _DPI)
     for label, x, y in knots:
         u, v = viewport.cutout_to_display(x, y)
         if not viewport.contains_display(u, v):
             continue
-        for colour, width in ((KNOT_HALO, 4), (KNOT_COLOUR, 2)):
-            pen.ellipse([u - 8, v - 8, u + 8, v + 8], outline=colour, width=width)
         pen.line([(u - 2, v), (u + 2, v)], fill=KNOT_COLOUR, width=1)
-        pen.text((u + 10, v - 20), str(label), fill=KNOT_COLOUR, font=font,
+        pen.text((u + r + 2, v - r - 12), str(label), fill=KNOT_COLOUR, font=font,
                  stroke_width=2, stroke_fill=KNOT_HALO)
     return picture

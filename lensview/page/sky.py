@@ -6,6 +6,7 @@ import streamlit as st
 from astropy.coordinates import SkyCoord
 from streamlit_image_coordinates import streamlit_image_coordinates
 
+from ..style import MU_LEVELS
 from ..errors import LensviewInputError
 from ..io.mapfiles import OVERLAY_ONLY_REASON, magnification_overlay_on, read_magnification_map
 from .inputs import upload_slot
@@ -22,7 +23,7 @@ LIMIT_CHOICES = {"zscale": "zscale", "99.5 %": 99.5, "99 %": 99.0, "98 %": 98.0,
 COLOUR_MAPS = ("gray_r", "gray", "magma", "cividis", "viridis", "inferno", "bone")
 ZOOMS = (1, 1.5, 2, 3, 4, 6, 8, 12, 16)
 WIDTHS = (560, 720, 880, 1040)
-CONTOUR_LEVELS = (3.0, 10.0, 30.0)
+CONTOUR_LEVELS = MU_LEVELS
 CLICK_KEY = "lv_click"
 CUTOUT_PICTURE = "the cutout"
 COMPOSITE_PICTURE = "colour composite"
@@ -43,7 +44,11 @@ def display_settings(model_names=(), filter_names=()):
                                      "knots stay at their sky positions.")
     left, right = sidebar.columns(2)
     stretch = left.selectbox("Stretch", STRETCH_CHOICES, key="lv_stretch")
-    limits_name = right.selectbox("Limits", list(LIMIT_CHOICES), key="lv_limits")
+    limits_name = right.selectbox(
+        "Limits", list(LIMIT_CHOICES), key="lv_limits",
+        help="Pixel values shown from the colour map's one end to the other: zscale picks a "
+             "robust range around the sky level; a percentage keeps that central share of the "
+             "pixel values; min to max shows all of them.")
     left, right = sidebar.columns(2)
     cmap = left.selectbox("Colour map", COLOUR_MAPS, key="lv_cmap")
     width = right.selectbox("Picture detail (px)", WIDTHS, index=1, key="lv_width",

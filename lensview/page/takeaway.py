@@ -1,4 +1,4 @@
-"""Main panel "Take away and restore": downloads, and bringing a session or catalogue back.
+"""Main panel "Download and restore": downloads, and bringing a session or catalogue back.
 
 Downloads are produced on demand (the button's data is a callable), by the
 export functions of `lensview.io` and `lensview.figures`, written to a
@@ -15,9 +15,10 @@ from astropy.table import Table
 
 from ..errors import LensviewInputError
 from . import state as page_state
+from .inputs import upload_limit_mb
 from .sky import LIMIT_CHOICES
 
-__all__ = ["download_producers", "takeaway_panel", "session_document"]
+__all__ = ["download_producers", "takeaway_panel", "session_document", "table_unavailable"]
 
 REGION_FORMATS = {"FITS region table (.fits)": ".fits", "ECSV vertex table (.ecsv)": ".ecsv",
                   "VOTable vertex table (.vot)": ".vot"}
@@ -120,6 +121,23 @@ def download_producers(state, scene, z_source, results, settings, viewport, *,
     }
 
 
+def table_unavailable(results, table_choice):
+    """Why the chosen table cannot be downloaded yet, or None when it can.
+
+    A download is a valid file of its kind or is not offered: the button is
+    disabled with this reason instead of writing a file that holds an error.
+    """
+    if table_choice in ("per model", "spread") and (
+            results.table is None or (table_choice == "spread" and results.spread is None)):
+        return "Mark at least one knot on the picture: the measurement tables list the knots."
+    if table_choice == "pairs" and results.pairs is None:
+        return "Pairs need at least two marked knots; mark more knots on the picture."
+    if table_choice == "counter-images" and results.counterimages is None:
+        return ("Counter-images are predicted for a marked knot; mark one on the picture "
+                "(tab Counter-images and pairs chooses which).")
+    return None
+
+
 def _other_images(images):
     if images is None or not len(images):
         return None
@@ -146,20 +164,29 @@ def takeaway_panel(state, scene, z_source, results, settings, viewport):
         include_caustics=include_caustics)
     state[DOWNLOADS] = {name: produce for name, (produce, _) in producers.items()}
     labels = ("Download regions", "Download table", "Download figure", "Download session")
+    missing = {"Download table": table_unavailable(results, table_choice)}
+    if not results.curves and not page_state.candidates(state):
+        missing["Download regions"] = ("No critical curve at this source redshift and no knot "
+                                       "marked: there is nothing to list yet.")
     for column, label, (name, (produce, mime)) in zip(cols, labels, producers.items()):
+        blocked = missing.get(label)
         column.download_button(label, data=_safe(produce), file_name=name, mime=mime,
                                key=f"lv_dl_{label.split()[-1]}", on_click="ignore",
-                               disabled=label == "Download table" and results.table is None)
+                               disabled=blocked is not None, help=blocked)
+        if blocked:
+            column.caption(blocked)
     st.divider()
     st.markdown("**Restore**")
     left, right = st.columns(2)
     with left:
-        st.file_uploader("Session file (.json)", type=["json"], key="lv_up_session")
+        limit = f"Up to {upload_limit_mb()} MB per file."
+        st.file_uploader("Session file (.json)", type=["json"], key="lv_up_session", help=limit)
         st.button("Restore this session", key="lv_restore", on_click=_restore_session,
                   args=(state, scene))
     with right:
         st.file_uploader("Knot list: region file or catalogue with RA/Dec",
-                         type=["csv", "ecsv", "vot", "xml", "fits"], key="lv_up_catalogue")
+                         type=["csv", "ecsv", "vot", "xml", "fits"], key="lv_up_catalogue",
+                         help=limit)
         a, b = st.columns(2)
         a.button("Add to my knots", key="lv_cat_add", on_click=_load_catalogue,
                  args=(state, scene, True))
