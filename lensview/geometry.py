@@ -73,7 +73,8 @@ class TangentPlane:
             of ``coords``. Positions 90 degrees or more from the centre have no
             projection and give NaN.
         """
-        coords = SkyCoord(coords).icrs
+        if not (isinstance(coords, SkyCoord) and coords.frame.name == "icrs"):
+            coords = SkyCoord(coords).icrs  # a copy only where a conversion is needed
         ra, dec = coords.ra.rad, coords.dec.rad
         p = np.stack([np.cos(dec) * np.cos(ra), np.cos(dec) * np.sin(ra), np.sin(dec)], axis=-1)
         along = p @ self._axis

@@ -12,6 +12,9 @@ from test_app import click_on, demo_knot, run_page, uploader
 
 
 def nature_frame(app):
+    if not app.checkbox(key="lv_nature_on").value:
+        app.checkbox(key="lv_nature_on").check()
+        run_page(app)
     frames = [f for f in app.dataframe if "verdict" in f.value.columns]
     assert frames, "the nature table is not shown"
     return frames[0].value

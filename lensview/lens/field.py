@@ -55,6 +55,7 @@ from .stencils import (
     TILE,
     fit_coefficients,
     gather_windows,
+    interpolate_values,
     window_starts,
 )
 from .tiles import TileCache
@@ -507,6 +508,15 @@ class DeflectionField:
         terms = self.local_terms(x, y, windows=LAGRANGE_NODES)
         traced = self.pixels_to_sky(x - f * terms.ax, y - f * terms.ay)
         return traced.reshape(np.shape(coords)) if np.shape(coords) else traced[0]
+
+    def deflection_pixels(self, x, y):
+        """Unscaled deflection (map pixels along +x, +y) at map pixel positions.
+
+        Values only, by the six-point interpolant (their rounding noise is not
+        amplified); NaN off the map or on masked cells.
+        """
+        return tuple(interpolate_values(alpha, x, y) * factor
+                     for alpha, factor in zip(self._alpha, self._to_pixels))
 
     def trace_pixels(self, x, y, z_source):
         """Ray-trace map pixel positions; returns source-plane map pixels."""

@@ -19,7 +19,7 @@ import numpy as np
 
 from ..checks import celestial_wcs
 from ..errors import LensviewInputError
-from .stencils import central_difference_4, gather_windows, lagrange_weights, window_starts
+from .stencils import central_difference_4, interpolate_values
 
 __all__ = ["potential_deflection", "potential_at"]
 
@@ -73,17 +73,7 @@ def potential_at(psi, x, y):
     -------
     ndarray
     """
-    x = np.atleast_1d(np.asarray(x, float))
-    y = np.atleast_1d(np.asarray(y, float))
-    ny, nx = psi.shape
-    inside = np.isfinite(x) & np.isfinite(y) & (x >= 0) & (x <= nx - 1) & (y >= 0) & (y <= ny - 1)
-    xs, ys = np.where(inside, x, 0.0), np.where(inside, y, 0.0)
-    col0, row0 = window_starts(xs, nx), window_starts(ys, ny)
-    windows = gather_windows(psi, row0, col0)
-    wx = lagrange_weights(xs - col0)
-    wy = lagrange_weights(ys - row0)
-    values = np.einsum("ni,nij,nj->n", wy, windows, wx)
-    return np.where(inside, values, np.nan)
+    return interpolate_values(psi, x, y)
 
 
 def potential_map(psi):

@@ -28,6 +28,7 @@ __all__ = [
     "monomials",
     "window_starts",
     "gather_windows",
+    "interpolate_values",
     "central_difference_4",
     "central_difference_2",
 ]
@@ -197,6 +198,26 @@ def gather_windows(array, row_start, col_start, size=LAGRANGE_NODES, dtype=np.fl
     # several times faster than indexing every node.
     windows = np.lib.stride_tricks.sliding_window_view(array, (size, size))
     return np.asarray(windows[row_start, col_start], dtype=dtype)
+
+
+def interpolate_values(array, x, y):
+    """Values of a map at pixel positions by the local six-point Lagrange interpolant.
+
+    For values only (no derivatives): rounding noise of the stored values
+    reaches them unamplified, so no wider fit is needed on float32 maps.
+    Positions off the map give NaN.
+    """
+    x = np.atleast_1d(np.asarray(x, float))
+    y = np.atleast_1d(np.asarray(y, float))
+    ny, nx = array.shape
+    inside = np.isfinite(x) & np.isfinite(y) & (x >= 0) & (x <= nx - 1) & (y >= 0) & (y <= ny - 1)
+    xs, ys = np.where(inside, x, 0.0), np.where(inside, y, 0.0)
+    col0, row0 = window_starts(xs, nx), window_starts(ys, ny)
+    windows = gather_windows(array, row0, col0)
+    wx = lagrange_weights(xs - col0)
+    wy = lagrange_weights(ys - row0)
+    values = np.einsum("ni,nij,nj->n", wy, windows, wx)
+    return np.where(inside, values, np.nan)
 
 
 def central_difference_4(stack, axis):

@@ -119,8 +119,8 @@ def fermat_potential(field, x, y, z_source, *, beta=None):
     f = field.scaling_factor(z_source)
     to_arcsec = field.wcs.pixel_scale_matrix * 3600.0
     if beta is None:
-        terms = field.local_terms(x, y, warn=False)
-        offset = f * np.column_stack([terms.ax, terms.ay])
+        ax, ay = field.deflection_pixels(x, y)
+        offset = f * np.column_stack([ax, ay])
     else:
         offset = np.column_stack([x - beta[0], y - beta[1]])
     offset = offset @ to_arcsec.T
@@ -166,8 +166,8 @@ def pair_time_delay(field, x, y, z_source):
     x = np.asarray(x, float)
     y = np.asarray(y, float)
     f = field.scaling_factor(z_source)
-    terms = field.local_terms(x, y, warn=False)
-    beta = (np.mean(x - f * terms.ax), np.mean(y - f * terms.ay))
+    ax, ay = field.deflection_pixels(x, y)
+    beta = (np.mean(x - f * ax), np.mean(y - f * ay))
     tau = fermat_potential(field, x, y, z_source, beta=beta)
     scale = time_delay_scale(field.z_lens, z_source, field.cosmology)
     return ((tau[1] - tau[0]) * u.arcsec**2 * scale).to(u.day)
@@ -205,8 +205,8 @@ def _candidate_paths(start, end, span):
 def _clear(field, path):
     """True if the path stays on defined cells, away from unresolved nodes."""
     points = np.vstack([_samples(a, b) for a, b in zip(path[:-1], path[1:])] + [path[-1][None]])
-    terms = field.local_terms(points[:, 0], points[:, 1], warn=False)
-    if not np.isfinite(terms.ax + terms.ay).all():
+    ax, ay = field.deflection_pixels(points[:, 0], points[:, 1])
+    if not np.isfinite(ax + ay).all():
         return False
     nodes = _unresolved_near(field, points)
     if not len(nodes):
@@ -234,7 +234,7 @@ def _unresolved_near(field, points):
     near = near[(near[:, 0] >= 0) & (near[:, 0] < rows_max) & (near[:, 1] >= 0)
                 & (near[:, 1] < cols_max)]
     near = np.unique(near, axis=0)
-    flags = tiles.terms(near)["unresolved"]
+    flags = tiles.terms(near, shear=False)["unresolved"]
     k, r, c = np.nonzero(flags)
     row0, col0 = tiles.origins(near)
     return np.column_stack([col0[k] + c, row0[k] + r]).astype(float)
@@ -256,10 +256,10 @@ def _segment_integral(field, a, b):
     t = 0.5 * (hi + lo)[:, None] + 0.5 * (hi - lo)[:, None] * _GAUSS_NODES[None, :]
     weights = 0.5 * (hi - lo)[:, None] * _GAUSS_WEIGHTS[None, :]
     points = a + t.reshape(-1, 1) * step
-    terms = field.local_terms(points[:, 0], points[:, 1], warn=False)
+    ax, ay = field.deflection_pixels(points[:, 0], points[:, 1])
     matrix = field.wcs.pixel_scale_matrix * 3600.0
     gram = matrix.T @ matrix
     # d psi = alpha_plane . d theta = alpha_pix^T G dp, alpha_pix in map pixels (unscaled).
     along = gram @ step
-    integrand = terms.ax * along[0] + terms.ay * along[1]
+    integrand = ax * along[0] + ay * along[1]
     return float(np.sum(weights.reshape(-1) * integrand))

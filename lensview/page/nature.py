@@ -119,6 +119,12 @@ def nature_panel(state, scene, z_source):
                "position, a redshifted blackbody fit, and each model's delensed luminosity and "
                "radius compared with what one star can be.")
     _band_details(state, scene)
+    if not st.checkbox("Measure the knots in every filter", value=False, key="lv_nature_on",
+                       help="Forced photometry, the blackbody fit and the verdict are redone at "
+                            "every change of the knots (about a second); switch on when needed."):
+        st.info("Switch on \u2018Measure the knots in every filter\u2019 to see colours, "
+                "temperatures and what each knot can be.")
+        return
     images, errors = scene_filters(state, scene)
     for message in errors:
         st.error(message)
