@@ -87,6 +87,8 @@ def test_uploaded_filters_without_a_zero_point_ask_for_it():
     assert len(scene.filter_files) == 2
     knots = demo.load_demo()[2]
     click_on(app, SkyCoord(float(knots["ra"][0]), float(knots["dec"][0]), unit=u.deg), stamp=1)
+    app.checkbox(key="lv_nature_on").check()
+    run_page(app)
     assert any("has no photometric zero point" in e.value for e in app.error)
     # Typing the zero point in the tab's filter details fixes it.
     app.text_input(key="lv_band_zp_1_blue.fits").set_value(str(demo.FILTERS[0].zero_point))

@@ -5,7 +5,7 @@ import pytest
 from astropy.table import Table
 
 from lensview.errors import LensviewInputError
-from lensview.figures_ensemble import render_ensemble_histograms
+from lensview.figures import render_ensemble_histograms
 
 
 def test_histograms_count_every_held_realisation_and_mark_the_models():

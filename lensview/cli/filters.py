@@ -95,7 +95,7 @@ def cmd_nature(args):
         print(f"{row['label']}: {row['verdict']}")
     if args.figures:
         from ..figures import save_figure
-        from ..figures_sed import render_knot_figures
+        from ..figures import render_knot_figures
 
         folder = Path(args.figures)
         folder.mkdir(parents=True, exist_ok=True)

@@ -4,7 +4,7 @@ The user points at a folder (or glob pattern) of realisations on the
 machine that runs the page, or uploads the files, and runs
 `lensview.measure_ensemble` with a progress bar. For the chosen knot the
 panel shows histograms of |mu| and of the offset across the realisations
-(`lensview.figures_ensemble`), with the loaded models' own values marked, and
+(`lensview.figures.ensemble`), with the loaded models' own values marked, and
 offers the summary and the per-realisation tables for download. The knots
 are only read here; a failed run leaves them as they are.
 """
@@ -133,7 +133,7 @@ def ensemble_panel(state, scene, z_source, results):
 
 
 def _show(state, scene, z_source, results, run, labels):
-    from ..figures_ensemble import render_ensemble_histograms
+    from ..figures import render_ensemble_histograms
 
     summary, samples = run["summary"], run["samples"]
     if run["z_source"] != float(z_source) or run["labels"] != labels or run["scene"] != scene.key:

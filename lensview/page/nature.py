@@ -3,7 +3,7 @@
 The numbers come from `lensview.knot_nature`; this module only gathers the
 user's choices (band details of uploaded filters, dust, aperture), shows the
 tables, the verdict with its cautions and the per-knot figure of
-`lensview.figures_sed`. The filters the picture can show come from
+`lensview.figures.knots`. The filters the picture can show come from
 `scene_filters` too.
 """
 
@@ -104,7 +104,7 @@ def _band_details(state, scene):
 
 
 def _figure_png(result, candidate):
-    from ..figures_sed import render_knot_figure
+    from ..figures import render_knot_figure
 
     buffer = io.BytesIO()
     render_knot_figure(result, candidate).savefig(buffer, format="png", dpi=110)

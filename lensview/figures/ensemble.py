@@ -8,8 +8,8 @@ on the loaded models.
 import numpy as np
 from matplotlib.figure import Figure
 
-from .errors import LensviewInputError
-from .figures import model_colours
+from ..errors import LensviewInputError
+from ..style import model_colours
 
 __all__ = ["render_ensemble_histograms"]
 

@@ -30,10 +30,10 @@ from matplotlib import colormaps, patheffects
 from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
 
-from .errors import LensviewInputError
-from .style import (COUNTERIMAGE, CURVE_NAMES, CURVE_STYLES, KNOT, MODEL_PALETTE, MU_LEVELS,
+from ..errors import LensviewInputError
+from ..style import (COUNTERIMAGE, CURVE_NAMES, CURVE_STYLES, KNOT, MODEL_PALETTE, MU_LEVELS,
                     MU_OVERLAY, PAIR_LINK)
-from .style import model_colours
+from ..style import model_colours
 
 __all__ = ["LENSVIEW_PALETTE", "STRETCHES", "display_norm", "model_colours",
            "render_field_figure", "render_source_plane_figure", "save_figure"]
@@ -168,7 +168,7 @@ def render_field_figure(data, wcs, *, curves=(), candidates=None, pairs=None, co
     colours = _draw_curves(ax, wcs, curves)
     candidate_table = None
     if candidates is not None:
-        from .io import as_candidate_table
+        from ..io import as_candidate_table
 
         candidate_table = as_candidate_table(candidates)
         xy = _table_pixels(candidate_table, wcs)
@@ -189,7 +189,7 @@ def render_field_figure(data, wcs, *, curves=(), candidates=None, pairs=None, co
 
 
 def _draw_magnification_overlay(ax, wcs, shape, mu_map, levels):
-    from .io.mapfiles import magnification_overlay_on
+    from ..io.mapfiles import magnification_overlay_on
 
     mu = magnification_overlay_on(mu_map, wcs, shape)
     ax.contour(np.where(np.isfinite(mu), mu, 0.0), levels=sorted(levels), colors=MU_OVERLAY.colour,
@@ -225,7 +225,7 @@ def render_source_plane_figure(image, wcs, caustics, traced_candidates=None, *, 
     colours = _draw_curves(ax, wcs, caustics)
     has_points = traced_candidates is not None
     if has_points:
-        from .io import as_candidate_table
+        from ..io import as_candidate_table
 
         table = as_candidate_table(traced_candidates)
         _draw_points(ax, _table_pixels(table, wcs), table["label"])
@@ -260,7 +260,7 @@ def save_figure(fig, path, dpi=300):
             f"The folder {str(path.parent)!r} does not exist; create it or choose another path.")
     if not (isinstance(dpi, (int, float)) and 10 <= dpi <= 2400):
         raise LensviewInputError(f"dpi must be a number between 10 and 2400; got {dpi!r}.")
-    from . import __version__
+    from .. import __version__
 
     creator = f"lensview {__version__}"
     metadata = {"Software": creator} if suffix == ".png" else {"Creator": creator, "CreationDate": None}
@@ -297,7 +297,7 @@ def _image_axes(data, wcs, stretch, limits, cmap):
 
 
 def _draw_curves(ax, wcs, curves):
-    from .io.regions import curve_list
+    from ..io.regions import curve_list
 
     curves = curve_list(curves)
     colours = model_colours(str(c.model) for c in curves)
@@ -362,7 +362,7 @@ def _scale_bar(ax, wcs, shape, redshift, cosmology, plane):
     length = fitting[-1] if fitting else 0.25 * width_arcsec
     label = f"{length:g}\u2033"
     if redshift is not None:
-        from .cosmology import angular_scale
+        from ..cosmology import angular_scale
 
         kpc = (angular_scale(redshift, cosmology, unit=u.kpc) * length * u.arcsec).to_value(u.kpc)
         label += f" = {_significant(kpc)} kpc"

@@ -7,7 +7,7 @@ from astropy.table import Table
 
 import lensview as lv
 from lensview import demo
-from lensview.figures_sed import render_knot_figure, render_knot_figures
+from lensview.figures import render_knot_figure, render_knot_figures
 
 
 @pytest.fixture(scope="module")

@@ -14,8 +14,8 @@ import astropy.units as u
 from matplotlib.figure import Figure
 from matplotlib.ticker import FormatStrFormatter, NullFormatter
 
-from .errors import LensviewInputError
-from .figures import model_colours
+from ..errors import LensviewInputError
+from ..style import model_colours
 
 __all__ = ["render_knot_figure", "render_knot_figures"]
 
@@ -39,7 +39,7 @@ def render_knot_figure(result, candidate, *, figsize=(8.4, 3.4)):
     -------
     `~matplotlib.figure.Figure`
     """
-    from .nature import COOL_STAR_LUMINOSITY, FEW_STARS, eddington_luminosity, MAX_STELLAR_MASS
+    from ..nature import COOL_STAR_LUMINOSITY, FEW_STARS, eddington_luminosity, MAX_STELLAR_MASS
 
     rows = result.summary[np.asarray(result.summary["candidate"]) == candidate]
     if len(rows) != 1:
