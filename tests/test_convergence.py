@@ -102,6 +102,7 @@ def test_tangential_critical_radius_of_gaussian():
     with pytest.warns(MissingMassWarning, match="mass outside the map is missing"):
         field = lv.DeflectionField.from_convergence(kappa, wcs, z_lens=Z_LENS, z_norm=Z_SOURCE,
                                                     name="gauss")
+    assert field.map_kind == "convergence"
     # Tangential curve where the mean convergence inside r is 1 (SEF 1992, sec. 8.1.2):
     # 2 kappa0 s^2 (1 - exp(-r^2/2s^2)) / r^2 = 1, solved with scipy's brentq.
     r_t = brentq(lambda r: 2 * kappa0 * sigma**2 * (1 - np.exp(-r**2 / (2 * sigma**2))) / r**2 - 1,

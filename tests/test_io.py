@@ -421,3 +421,17 @@ def test_session_saving_refuses_unsavable_values(tmp_path, session):
         save_session(tmp_path / "s.json", {"z_lens": 0.3})
     assert not (tmp_path / "s.json").exists()
     assert isinstance(load_session(save_session(None, session)), Session)
+
+
+def test_session_records_what_each_model_file_holds(tmp_path, session):
+    session["models"][1] = ModelInputs("model B", session["models"][1].files, kind="convergence")
+    document = json.loads(save_session(None, session))
+    assert [m["kind"] for m in document["inputs"]["models"]] == ["deflection", "convergence"]
+    assert load_session(json.dumps(document)).models[1].kind == "convergence"
+    # A session written before the kind was recorded reads as deflection pairs.
+    for model in document["inputs"]["models"]:
+        del model["kind"]
+    assert {m.kind for m in load_session(json.dumps(document)).models} == {"deflection"}
+    document["inputs"]["models"][0]["kind"] = "magnification"
+    with pytest.raises(LensviewInputError, match="kind"):
+        load_session(json.dumps(document))

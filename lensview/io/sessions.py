@@ -18,6 +18,8 @@ from .files import atomic_write, lensview_version, plain_json
 from .knots import NO_PAIR, as_candidate_table, candidate_result
 from .tables import realisation_of
 
+#: What a model's files may hold (the LENSMAP kinds that make a model).
+MODEL_KINDS = ("deflection", "convergence", "potential")
 __all__ = ["InputFile", "ModelInputs", "Candidate", "Session", "FileStatus", "save_session", "load_session", "check_session_files", "SESSION_FORMAT", "SESSION_VERSION"]
 
 
@@ -80,12 +82,16 @@ class ModelInputs:
         "arcsec" or "pixel".
     z_norm : float or None
         Redshift the maps were made for; None for maps normalised to D_ls/D_s = 1.
+    kind : str
+        What the files hold: "deflection", "convergence" or "potential"
+        (sessions written before this field existed read as "deflection").
     """
 
     name: str
     files: tuple
     units: str = "arcsec"
     z_norm: float = None
+    kind: str = "deflection"
 
 
 @dataclass(frozen=True)
@@ -163,7 +169,8 @@ class Session:
             "inputs": {
                 "cutout": None if self.cutout is None else _file_dict(self.cutout),
                 "models": [{"name": m.name, "files": [_file_dict(f) for f in m.files],
-                            "units": m.units, "z_norm": m.z_norm} for m in self.models],
+                            "units": m.units, "z_norm": m.z_norm, "kind": m.kind}
+                           for m in self.models],
             },
             "z_lens": self.z_lens,
             "z_source": self.z_source,
@@ -261,7 +268,7 @@ def _session_from_document(document):
     models = []
     for k, model in enumerate(check.array(inputs["models"], "'inputs.models'")):
         where = f"'inputs.models[{k}]'"
-        check.mapping(model, where, ("name", "files", "units", "z_norm"))
+        check.mapping(model, where, ("name", "files", "units", "z_norm"), optional=("kind",))
         files = check.array(model["files"], f"{where}.files")
         if len(files) not in (1, 2):
             check.fail(f"{where}.files", f"must list one or two files, got {len(files)}")
@@ -271,7 +278,8 @@ def _session_from_document(document):
         models.append(ModelInputs(
             name=check.text(model["name"], f"{where}.name"),
             files=tuple(_file_record(check, f, f"{where}.files[{j}]") for j, f in enumerate(files)),
-            units=check.text(model["units"], f"{where}.units", ("arcsec", "pixel")), z_norm=z_norm))
+            units=check.text(model["units"], f"{where}.units", ("arcsec", "pixel")), z_norm=z_norm,
+            kind=check.text(model.get("kind", "deflection"), f"{where}.kind", MODEL_KINDS)))
 
     z_lens = check.number(document["z_lens"], "'z_lens'", 0, strict=True)
     z_source = check.number(document["z_source"], "'z_source'", 0, strict=True)
@@ -390,12 +398,13 @@ def _as_input_file(value):
 def _model_dict(model):
     if isinstance(model, ModelInputs):
         return {"name": model.name, "files": [_file_dict(_as_input_file(f)) for f in model.files],
-                "units": model.units, "z_norm": model.z_norm}
+                "units": model.units, "z_norm": model.z_norm, "kind": model.kind}
     if isinstance(model, dict):
         out = dict(model)
         out["files"] = [_file_dict(_as_input_file(f)) for f in model.get("files", ())]
         out.setdefault("units", "arcsec")
         out.setdefault("z_norm", None)
+        out.setdefault("kind", "deflection")
         return plain_json(out)
     raise LensviewInputError(f"Models in a session are ModelInputs records, got {type(model).__name__}.")
 

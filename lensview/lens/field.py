@@ -143,6 +143,8 @@ class DeflectionField:
         self._caustic_cache = {}
         #: Lensing potential (arcsec^2, unscaled, on the map grid) when the model came as one.
         self.potential = None
+        #: What the model was made from: "deflection", "convergence" or "potential".
+        self.map_kind = "deflection"
         self._check_not_empty()
 
     # ------------------------------------------------------------------ construction
@@ -200,8 +202,10 @@ class DeflectionField:
             kappa, wcs, name=name, fill_nan=fill_nan, external_kappa=external_kappa,
             external_shear=external_shear,
             max_memory=DEFAULT_MAX_MEMORY if max_memory is None else max_memory)
-        return cls(alpha_x, alpha_y, wcs, units="arcsec", z_lens=z_lens, z_norm=z_norm,
-                   cosmology=cosmology, name=name)
+        field = cls(alpha_x, alpha_y, wcs, units="arcsec", z_lens=z_lens, z_norm=z_norm,
+                    cosmology=cosmology, name=name)
+        field.map_kind = "convergence"
+        return field
 
     @classmethod
     def from_potential(cls, psi, wcs, *, z_lens, z_norm=None, cosmology=None, name=None):
@@ -218,6 +222,7 @@ class DeflectionField:
         field = cls(alpha_x, alpha_y, wcs, units="arcsec", z_lens=z_lens, z_norm=z_norm,
                     cosmology=cosmology, name=name)
         field.potential = psi
+        field.map_kind = "potential"
         return field
 
     def _check_not_empty(self):

@@ -331,7 +331,7 @@ def files_scene(cutout_files, model_specs, z_lens, cosmology_choice, filter_file
         notes.extend(cautions)
         # The session records what the files turned out to hold.
         model_inputs.append(ModelInputs(name, tuple(InputFile(h.name, h.sha256) for h in held),
-                                        field.units, field.z_norm))
+                                        field.units, field.z_norm, field.map_kind))
         files.update({h.name: h.content for h in held})
     if not fields:
         raise LensviewInputError("No lens model is loaded; upload at least one deflection model.")
