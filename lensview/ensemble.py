@@ -29,6 +29,7 @@ import io
 import os
 import re
 import warnings
+from contextlib import nullcontext
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -39,6 +40,7 @@ from astropy.coordinates import angular_separation
 from astropy.table import Table, vstack
 
 from .lens.loading import FROM_HEADER, load_model
+from .lens.parallel import on_this_thread
 from .errors import LensviewInputError
 from .measure import measure_candidates
 
@@ -255,13 +257,15 @@ def _grid(field):
     return (ny, nx), np.column_stack([sky.ra.deg, sky.dec.deg]), scale
 
 
-def _measure_one(realisation, index, coords, z_source, cosmology, labels):
+def _measure_one(realisation, index, coords, z_source, cosmology, labels, serial):
     name, files = _describe(realisation, index)
     try:
         field = realisation() if callable(realisation) else realisation
     except (LensviewInputError, OSError) as error:
         return _Outcome(index, name, files, error=str(error))
-    table = measure_candidates(coords, field, z_source, cosmology=cosmology, labels=labels)
+    # With tasks side by side the cores are busy already: threads inside would compete.
+    with on_this_thread() if serial else nullcontext():
+        table = measure_candidates(coords, field, z_source, cosmology=cosmology, labels=labels)
     table["realisation"] = np.full(len(table), index)
     outcome = _Outcome(index, field.name or name, files, table=table, grid=_grid(field))
     del field  # the maps are released with the task
@@ -384,7 +388,9 @@ def measure_ensemble(coords, realisations, z_source, *, cosmology=None, labels=N
             progress(done, total)
 
     shared = dask.delayed(coords)  # one copy of the knots in the graph, shared by the tasks
-    tasks = [dask.delayed(_measure_one, pure=False)(r, k, shared, z_source, cosmology, labels)
+    serial = scheduler != "synchronous"
+    tasks = [dask.delayed(_measure_one, pure=False)(r, k, shared, z_source, cosmology, labels,
+                                                    serial)
              for k, r in enumerate(realisations)]
     client, opened = _client(scheduler) if not _local(scheduler) else (None, False)
     try:

@@ -8,7 +8,7 @@ import lensview as lv
 from lensview.page import state as page_state
 from lensview.page.ensemble import ENSEMBLE
 
-from test_app import demo_knot, run_page
+from test_app import demo_knot, download_buttons, run_page
 
 
 def write_realisations(folder, field, factors):
@@ -45,7 +45,7 @@ def test_the_panel_measures_the_knots_over_a_folder_of_realisations(tmp_path):
     for name in ("abs_mu_p50", "offset_arcsec_p16", "fraction_abs_mu_gt_5"):
         np.testing.assert_allclose(run["summary"][name], expected[name], rtol=1e-9)
     assert len(run["samples"]) == 6
-    labels = [d.label for d in app.download_button]
+    labels = [d.proto.label for d in download_buttons(app)]
     assert "Download the summary" in labels and "Download every realisation's rows" in labels
     app.selectbox(key="lv_ens_knot").set_value("K2")
     run_page(app)

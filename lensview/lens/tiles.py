@@ -14,7 +14,9 @@ __all__ = ["TileCache", "UNRESOLVED_TOLERANCE"]
 #: Relative disagreement between fourth- and second-order differences above
 #: which a node counts as unresolved by the grid (e.g. a singular centre).
 UNRESOLVED_TOLERANCE = 0.05
-_TILE_BATCH = 2048
+#: Tiles differenced at once: the float64 window stacks of a batch are the largest
+#: temporaries of curve extraction (256 tiles: ~10 MiB per map component).
+_TILE_BATCH = 256
 
 
 class TileCache:
