@@ -29,7 +29,6 @@ import io
 import os
 import re
 import warnings
-from contextlib import nullcontext
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -40,7 +39,6 @@ from astropy.coordinates import angular_separation
 from astropy.table import Table, vstack
 
 from .lens.loading import FROM_HEADER, load_model
-from .lens.parallel import on_this_thread
 from .errors import LensviewInputError
 from .measure import measure_candidates
 
@@ -257,15 +255,13 @@ def _grid(field):
     return (ny, nx), np.column_stack([sky.ra.deg, sky.dec.deg]), scale
 
 
-def _measure_one(realisation, index, coords, z_source, cosmology, labels, serial):
+def _measure_one(realisation, index, coords, z_source, cosmology, labels):
     name, files = _describe(realisation, index)
     try:
         field = realisation() if callable(realisation) else realisation
     except (LensviewInputError, OSError) as error:
         return _Outcome(index, name, files, error=str(error))
-    # With tasks side by side the cores are busy already: threads inside would compete.
-    with on_this_thread() if serial else nullcontext():
-        table = measure_candidates(coords, field, z_source, cosmology=cosmology, labels=labels)
+    table = measure_candidates(coords, field, z_source, cosmology=cosmology, labels=labels)
     table["realisation"] = np.full(len(table), index)
     outcome = _Outcome(index, field.name or name, files, table=table, grid=_grid(field))
     del field  # the maps are released with the task
@@ -388,9 +384,7 @@ def measure_ensemble(coords, realisations, z_source, *, cosmology=None, labels=N
             progress(done, total)
 
     shared = dask.delayed(coords)  # one copy of the knots in the graph, shared by the tasks
-    serial = scheduler != "synchronous"
-    tasks = [dask.delayed(_measure_one, pure=False)(r, k, shared, z_source, cosmology, labels,
-                                                    serial)
+    tasks = [dask.delayed(_measure_one, pure=False)(r, k, shared, z_source, cosmology, labels)
              for k, r in enumerate(realisations)]
     client, opened = _client(scheduler) if not _local(scheduler) else (None, False)
     try:
