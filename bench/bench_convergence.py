@@ -25,6 +25,7 @@ import time
 from pathlib import Path
 
 import numpy as np
+from timing import square_tan_wcs
 
 SIZE = 4096
 SCALE_ARCSEC = 0.03
@@ -34,16 +35,6 @@ BLOBS = ((2048.3, 2047.6, 1.2, 260.0), (1700.0, 2300.0, 0.6, 90.0), (2500.0, 180
 SAMPLES = 4000
 
 
-def make_wcs(n):
-    from astropy.wcs import WCS
-
-    w = WCS(naxis=2)
-    w.wcs.ctype = ["RA---TAN", "DEC--TAN"]
-    w.wcs.crval = [150.0, 2.0]
-    w.wcs.crpix = [n / 2 + 1, n / 2 + 1]
-    scale = SCALE_ARCSEC / 3600
-    w.wcs.cd = [[-scale, 0], [0, scale]]
-    return w
 
 
 def kappa_map():
@@ -98,7 +89,7 @@ def child(which):
     sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
     from lensview.lens.convergence import convergence_deflection, fft_memory_bytes
 
-    wcs = make_wcs(SIZE)
+    wcs = square_tan_wcs(SIZE, SCALE_ARCSEC)
     kappa = kappa_map()
     if which == "lensview":
         run = lambda: convergence_deflection(kappa, wcs)  # noqa: E731

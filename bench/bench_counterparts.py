@@ -16,7 +16,7 @@ import numpy as np
 from scipy.optimize import root
 
 import lensview as lv
-from timing import timed
+from timing import square_tan_wcs, timed
 from lensview.cosmology import distance_ratio
 
 SIZE = 2048
@@ -41,16 +41,6 @@ def sie_alpha(x, y, theta_e, q, pa, x0, y0):
     return c * axp - s * ayp, s * axp + c * ayp
 
 
-def make_wcs(n):
-    from astropy.wcs import WCS
-
-    w = WCS(naxis=2)
-    w.wcs.ctype = ["RA---TAN", "DEC--TAN"]
-    w.wcs.crval = [150.0, 2.0]
-    w.wcs.crpix = [n / 2 + 1, n / 2 + 1]
-    scale = SCALE_ARCSEC / 3600
-    w.wcs.cd = [[-scale, 0], [0, scale]]
-    return w
 
 
 def reference_images(field, f, beta):
@@ -101,7 +91,7 @@ def main():
     ax, ay = sie_alpha(x, y, THETA_E, AXIS_RATIO, POSITION_ANGLE, x0, y0)
     ax, ay = ax.astype(np.float32), ay.astype(np.float32)
     del x, y
-    wcs = make_wcs(SIZE)
+    wcs = square_tan_wcs(SIZE, SCALE_ARCSEC)
     f = distance_ratio(Z_LENS, Z_SOURCE)
     theta_f = THETA_E * f
 

@@ -17,11 +17,10 @@ from pathlib import Path
 import contourpy
 import numpy as np
 from astropy.io import fits
-from astropy.wcs import WCS
 from scipy import ndimage
 
 import lensview as lv
-from timing import peak_memory, timed
+from timing import peak_memory, square_tan_wcs, timed
 from lensview.cosmology import distance_ratio
 
 SIZE = 4096
@@ -57,14 +56,6 @@ def ellipse_deviation(xy, theta_e, q, pa, x0, y0):
     return (r - theta_e * np.sqrt(q)) / grad
 
 
-def make_wcs(n):
-    w = WCS(naxis=2)
-    w.wcs.ctype = ["RA---TAN", "DEC--TAN"]
-    w.wcs.crval = [150.0, 2.0]
-    w.wcs.crpix = [n / 2 + 1, n / 2 + 1]
-    scale = 0.03 / 3600
-    w.wcs.cd = [[-scale, 0], [0, scale]]
-    return w
 
 
 def reference_curves(path_x, path_y, f, derivatives=None, maps=None):
@@ -114,7 +105,7 @@ def main():
     ax, ay = sie_pixels(SIZE, THETA_E, AXIS_RATIO, POSITION_ANGLE, x0, y0)
     z_first = Z_SOURCES[0]
     f_first = distance_ratio(Z_LENS, z_first)
-    wcs = make_wcs(SIZE)
+    wcs = square_tan_wcs(SIZE, 0.03)
     with tempfile.TemporaryDirectory() as tmp:
         header = wcs.to_header()
         header["BUNIT"] = "pixel"

@@ -27,9 +27,9 @@ from pathlib import Path
 import numpy as np
 from astropy.io import fits
 from astropy.table import vstack
-from astropy.wcs import WCS
 
 import lensview as lv
+from timing import square_tan_wcs
 from lensview.ensemble import find_realisations, measure_ensemble, summarize_ensemble
 
 N_PIXELS = 1024
@@ -39,13 +39,6 @@ Z_LENS, Z_SOURCE = 0.4, 2.0
 MiB = 2**20
 
 
-def make_wcs(n, scale_arcsec=0.05):
-    wcs = WCS(naxis=2)
-    wcs.wcs.ctype = ["RA---TAN", "DEC--TAN"]
-    wcs.wcs.crval = [150.0, 2.0]
-    wcs.wcs.crpix = [n / 2 + 1, n / 2 + 1]
-    wcs.wcs.cd = [[-scale_arcsec / 3600, 0], [0, scale_arcsec / 3600]]
-    return wcs
 
 
 def sie_unit(n, q=0.72, pa=0.5):
@@ -65,7 +58,7 @@ def sie_unit(n, q=0.72, pa=0.5):
 
 
 def write_realisations(folder, n_realisations, rng):
-    wcs = make_wcs(N_PIXELS)
+    wcs = square_tan_wcs(N_PIXELS, 0.05)
     header = wcs.to_header()
     header["BUNIT"] = "pixel"
     ax, ay = sie_unit(N_PIXELS)
