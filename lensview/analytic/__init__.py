@@ -29,7 +29,8 @@ grids, and the map's intermediate world plane).
 
 from .grids import (convergence_map, deflection_maps, magnification_map, make_wcs,
                     plane_coordinates, plane_to_sky, sky_to_plane)
-from .profiles import NFW, CompositeLens, ExternalShear, IsothermalEllipsoid, IsothermalSphere, PointMass
+from .profiles import (NFW, CompositeLens, ExternalShear, IsothermalEllipsoid, IsothermalSphere,
+                       PointMass)
 
 __all__ = [
     "PointMass",

@@ -6,7 +6,8 @@ from astropy.wcs import WCS
 
 from ..checks import finite_number
 from ..errors import LensviewInputError
-from .profiles import arcsec_value, centre_coord, flatten_profiles, plane_offsets, position_angle_rad
+from .profiles import (arcsec_value, centre_coord, flatten_profiles, plane_offsets,
+                       position_angle_rad)
 
 _BLOCK_PIXELS = 1 << 20  # grid evaluation in blocks of about a million pixels
 

@@ -21,7 +21,8 @@ from ..errors import LensviewInputError
 from .files import cmd_demo, cmd_session
 from .filters import cmd_nature
 from .lensing import cmd_curves, cmd_figure, cmd_images, cmd_measure, cmd_pair
-from .options import add_cosmology, add_knots, add_models, add_pairing, normalisation, percentile_list
+from .options import (add_cosmology, add_knots, add_models, add_pairing, normalisation,
+                      percentile_list)
 from .posterior import cmd_posterior
 
 __all__ = ["main", "build_parser"]

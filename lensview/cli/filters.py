@@ -8,7 +8,8 @@ import numpy as np
 import astropy.units as u
 
 from ..errors import LensviewInputError
-from .options import cosmology_from_args, load_models, progress, read_knots, sibling_path
+from .options import (cosmology_from_args, load_models, positive_or_none, progress, read_knots,
+                      sibling_path)
 
 _BAND_KEYS = ("name", "zp", "pivot", "psf", "beta")
 
@@ -78,9 +79,7 @@ def cmd_nature(args):
         from astropy.table import Table
 
         realisations = Table.read(args.realisations)
-    if args.aperture is not None and not args.aperture > 0:
-        raise LensviewInputError(f"--aperture {args.aperture} must be a positive radius in arcsec.")
-    radius = None if args.aperture is None else args.aperture * u.arcsec
+    radius = positive_or_none(args.aperture, "--aperture")
     progress(f"{len(coords)} knot(s) in {len(images)} filter(s) against {len(fields)} model(s)")
     result = knot_nature(images, coords, fields, args.z_source, labels=labels, radius=radius,
                          dust=dust, realisations=realisations, cosmology=cosmology_from_args(args))

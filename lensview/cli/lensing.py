@@ -6,7 +6,8 @@ import astropy.units as u
 from astropy.coordinates import SkyCoord
 
 from ..errors import LensviewInputError
-from .options import cosmology_from_args, load_models, positive_or_none, progress, read_knots, sibling_path
+from .options import (cosmology_from_args, load_models, positive_or_none, progress, read_knots,
+                      sibling_path)
 
 def cmd_curves(args):
     from ..io import write_regions
@@ -32,8 +33,7 @@ def cmd_measure(args):
 
     if args.aperture is not None and not args.cutout:
         raise LensviewInputError("--aperture needs --cutout: photometry is measured on the cutout.")
-    if args.aperture is not None and not args.aperture > 0:
-        raise LensviewInputError(f"--aperture {args.aperture} must be a positive radius in arcsec.")
+    positive_or_none(args.aperture, "--aperture")
     if args.zero_point is not None and args.aperture is None:
         raise LensviewInputError("--zero-point is used only with --aperture photometry; add --aperture.")
     cutout = None

@@ -5,10 +5,11 @@ import numpy as np
 import astropy.units as u
 from astropy.coordinates import SkyCoord
 from .maps import scaled_size
-from .scenario import (CLUMP_SLOPE, COMPACT_TEMPERATURE, FIELD_SLOPE, FILTERS, HOST_SLOPE,
-                       MEMBER_SLOPE, REFERENCE_FILTER)
-from .scenario import VERSIONS_FILE
-from .scenario import CANDIDATE_FILE, CENTRE, CLUSTER_NAME, CUTOUT_FILE, CUTOUT_SCALE, CUTOUT_SHAPE, GRIDS, HOST, KNOTS, MEMBERS, MODEL_NAMES, OVERSAMPLE, PSF_BETA, PSF_FWHM, SKY_SIGMA, TRUTH_MODEL, ZERO_POINT, Z_LENS, Z_SOURCE, describe_model
+from .scenario import (CANDIDATE_FILE, CENTRE, CLUMP_SLOPE, CLUSTER_NAME, COMPACT_TEMPERATURE,
+                       CUTOUT_FILE, CUTOUT_SCALE, CUTOUT_SHAPE, describe_model, FIELD_SLOPE,
+                       FILTERS, GRIDS, HOST, HOST_SLOPE, KNOTS, MEMBER_SLOPE, MEMBERS, MODEL_NAMES,
+                       OVERSAMPLE, PSF_BETA, PSF_FWHM, REFERENCE_FILTER, SKY_SIGMA, TRUTH_MODEL,
+                       VERSIONS_FILE, Z_LENS, Z_SOURCE, ZERO_POINT)
 
 
 

@@ -12,7 +12,9 @@ from scipy.special import gamma as gamma_function, gammaincinv
 from .. import analytic
 from .colours import REFERENCE_LOOK
 from .maps import scaled_size
-from .scenario import CLUSTER_NAME, CUTOUT_CENTRE, CUTOUT_SCALE, CUTOUT_SHAPE, HOST, MEMBERS, OVERSAMPLE, PSF_BETA, PSF_FWHM, SKY_SIGMA, TRACED_SIGMA, ZERO_POINT, Z_LENS, Z_SOURCE, scenario_sky
+from .scenario import (CLUSTER_NAME, CUTOUT_CENTRE, CUTOUT_SCALE, CUTOUT_SHAPE, HOST, MEMBERS,
+                       OVERSAMPLE, PSF_BETA, PSF_FWHM, SKY_SIGMA, TRACED_SIGMA, ZERO_POINT, Z_LENS,
+                       Z_SOURCE, scenario_sky)
 
 
 def _flux(mag, zero_point=ZERO_POINT):

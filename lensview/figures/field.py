@@ -31,9 +31,8 @@ from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
 
 from ..errors import LensviewInputError
-from ..style import (COUNTERIMAGE, CURVE_NAMES, CURVE_STYLES, KNOT, MODEL_PALETTE, MU_LEVELS,
-                    MU_OVERLAY, PAIR_LINK)
-from ..style import model_colours
+from ..style import (COUNTERIMAGE, CURVE_NAMES, CURVE_STYLES, KNOT, model_colours, MODEL_PALETTE,
+                     MU_LEVELS, MU_OVERLAY, PAIR_LINK)
 
 __all__ = ["LENSVIEW_PALETTE", "STRETCHES", "display_norm", "model_colours",
            "render_field_figure", "render_source_plane_figure", "save_figure"]

@@ -38,7 +38,8 @@ from astropy.wcs import WCS
 
 from ..checks import celestial_wcs
 from ..errors import LensviewInputError
-from .files import FITS_SUFFIXES, TABLE_FORMATS, VOTABLE_SUFFIXES, atomic_write, first_line, lensview_version
+from .files import (FITS_SUFFIXES, TABLE_FORMATS, VOTABLE_SUFFIXES, atomic_write, first_line,
+                    lensview_version)
 from .knots import NO_PAIR, as_candidate_table, candidate_result, label_text
 from .tables import _export_meta, write_table_file
 

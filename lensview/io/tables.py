@@ -9,7 +9,8 @@ import astropy.units as u
 from astropy.table import Table
 
 from ..errors import LensviewInputError
-from .files import FORMAT_NAMES, TABLE_FORMATS, atomic_write, first_line, lensview_version, plain_json, read_source
+from .files import (FORMAT_NAMES, TABLE_FORMATS, atomic_write, first_line, lensview_version,
+                    plain_json, read_source)
 
 __all__ = ["write_table", "read_table"]
 
